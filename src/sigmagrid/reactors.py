@@ -1,0 +1,343 @@
+"""One relaxation to equilibrium in a Cantera reactor, at full solver resolution.
+
+Reactor types (DESIGN section 2):
+
+========================  ==========  ==================================  =====================
+name                      held fixed  Cantera reactor                     potential Phi, J/K
+========================  ==========  ==================================  =====================
+``isolated``              U, V        ``IdealGasReactor``                 S
+``constant-pressure``     H, P        ``IdealGasConstPressureReactor``    S
+``isothermal``            T, P        same, ``energy="off"``              S - H/T  (= -G/T)
+========================  ==========  ==================================  =====================
+
+In each, dPhi/dt = V sigma >= 0 and Phi reaches its largest value at the equilibrium that
+``ct.Solution.equilibrate`` finds with the same pair held fixed; the progress is
+lambda = (Phi - Phi_0) / (Phi_eq - Phi_0).
+
+The reactor is stepped with ``ReactorNet.step()`` (every internal CVODE step), as in Cantera's
+own examples; entropy production per reaction is integrated over those steps.
+"""
+
+from __future__ import annotations
+
+import time as _time
+import warnings
+from dataclasses import dataclass, field
+
+import cantera as ct
+import numpy as np
+
+from .diagnostics import SignAudit, SignTracker
+from .mechanism import MechanismInfo
+from .units import GAS_CONSTANT, KMOL, PER_KMOL
+
+REACTOR_TYPES = ("isolated", "constant-pressure", "isothermal")
+_HELD_FIXED = {"isolated": "UV", "constant-pressure": "HP", "isothermal": "TP"}
+PROGRESS_LEVELS = (0.5, 0.9, 0.99)
+STATUSES = ("relaxed", "not-relaxed", "failed")
+
+
+@dataclass(frozen=True)
+class RelaxSettings:
+    """End criteria and solver settings of one relaxation.
+
+    max_time : s, integration stops there with status ``not-relaxed``.
+    progress_tolerance : 1, stop once Phi_eq - Phi <= tolerance * (Phi_eq - Phi_0).
+    rtol, atol : CVODE relative and absolute tolerances.
+    max_steps : budget of solver steps for the whole case.
+    volume : m3, initial reactor volume (scales extensive results: entropy, entropy produced).
+    ignition_rise : K, smallest temperature rise counted as an ignition.
+    """
+
+    max_time: float = 10.0
+    progress_tolerance: float = 1e-8
+    rtol: float = 1e-10
+    atol: float = 1e-20
+    max_steps: int = 200_000
+    volume: float = 1e-3
+    ignition_rise: float = 50.0
+
+
+@dataclass
+class EquilibriumState:
+    temperature: float  # K
+    pressure: float  # Pa
+    volume: float  # m3
+    mole_fractions: np.ndarray
+    entropy: float  # J/K
+    potential: float  # J/K
+
+
+@dataclass
+class Relaxation:
+    """The observed path at full resolution and what was measured on it."""
+
+    reactor: str
+    status: str
+    reason: str
+    mass: float  # kg
+    time: np.ndarray  # s
+    temperature: np.ndarray  # K
+    pressure: np.ndarray  # Pa
+    density: np.ndarray  # kg/m3
+    mass_fractions: np.ndarray  # (n, n_species)
+    entropy: np.ndarray  # J/K, total entropy of the contents
+    potential: np.ndarray  # J/K, S (adiabatic) or S - H/T (isothermal)
+    entropy_production_total: np.ndarray  # W/(m3 K) at each step
+    entropy_produced: np.ndarray  # J/K per reaction, integral of V sigma_j dt
+    equilibrium: EquilibriumState | None
+    audit: SignAudit | None
+    molecular_weights: np.ndarray | None = None  # kg/kmol, for the size of "negligible"
+    ignition_rise: float = 50.0  # K
+    energy_drift: float = float("nan")  # relative change of the held U (isolated) or H (constant-pressure)
+    wall_seconds: float = 0.0
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def volume(self) -> np.ndarray:
+        return self.mass / self.density
+
+    @property
+    def n_steps(self) -> int:
+        return max(self.time.size - 1, 0)
+
+    @property
+    def driving_potential(self) -> float:
+        """Phi_eq - Phi_0, J/K: what the relaxation has to produce; 0 for a mixture at equilibrium."""
+        if self.equilibrium is None:
+            return float("nan")
+        return self.equilibrium.potential - self.potential[0]
+
+    @property
+    def at_equilibrium_start(self) -> bool:
+        return self.equilibrium is not None and self._negligible(self.driving_potential)
+
+    def _negligible(self, value: float) -> bool:
+        # 1e-10 R per mole of mixture: far below any chemistry, far above round-off
+        kmol = self.mass * np.sum(self.mass_fractions[0] / self.molecular_weights)
+        return abs(value) <= 1e-10 * kmol * 1e3 * GAS_CONSTANT
+
+    @property
+    def progress(self) -> np.ndarray:
+        """lambda = (Phi - Phi_0)/(Phi_eq - Phi_0), 1; NaN where undefined (start at equilibrium)."""
+        drive = self.driving_potential
+        if not np.isfinite(drive) or self.at_equilibrium_start:
+            return np.full(self.time.shape, np.nan)
+        return (self.potential - self.potential[0]) / drive
+
+    @property
+    def balance_residual(self) -> float:
+        """|Delta Phi - sum_j I_j| / Delta Phi from the full-resolution path (1)."""
+        change = self.potential[-1] - self.potential[0]
+        produced = float(self.entropy_produced.sum())
+        if self._negligible(change):
+            return float("nan")
+        return abs(change - produced) / abs(change)
+
+    @property
+    def ignition_delay(self) -> float:
+        """Time of the largest dT/dt, s; NaN where T rises by less than the ignition threshold."""
+        return _ignition_delay(self.time, self.temperature, self.ignition_rise)
+
+    def progress_time(self, level: float) -> float:
+        """First time the progress reaches ``level``, s (linear interpolation); NaN if never."""
+        lam = self.progress
+        if lam.size == 0 or not np.isfinite(lam).any():
+            return float("nan")
+        above = np.flatnonzero(lam >= level)
+        if above.size == 0:
+            return float("nan")
+        i = int(above[0])
+        if i == 0:
+            return float(self.time[0])
+        l0, l1 = lam[i - 1], lam[i]
+        t0, t1 = self.time[i - 1], self.time[i]
+        return float(t0 + (level - l0) * (t1 - t0) / (l1 - l0)) if l1 != l0 else float(t1)
+
+
+def _ignition_delay(t: np.ndarray, temperature: np.ndarray, rise: float) -> float:
+    if t.size < 3 or temperature.max() - temperature[0] < rise:
+        return float("nan")
+    dTdt = np.diff(temperature) / np.diff(t)
+    i = int(np.argmax(dTdt))
+    return float(0.5 * (t[i] + t[i + 1]))
+
+
+def _make_reactor(reactor_type: str, gas: ct.Solution, volume: float):
+    kwargs = {"volume": volume}
+    if reactor_type == "isothermal":
+        kwargs["energy"] = "off"
+    cls = ct.IdealGasReactor if reactor_type == "isolated" else ct.IdealGasConstPressureReactor
+    try:
+        return cls(gas, clone=False, **kwargs)
+    except TypeError:  # Cantera 3.1 has no clone argument and always shares the phase
+        return cls(gas, **kwargs)
+
+
+def _held_energy(reactor_type: str, gas: ct.Solution) -> float:
+    """Specific energy the reactor holds fixed, J/kg (NaN for the isothermal reactor)."""
+    if reactor_type == "isolated":
+        return gas.int_energy_mass
+    if reactor_type == "constant-pressure":
+        return gas.enthalpy_mass
+    return float("nan")
+
+
+def _potential(reactor_type: str, mass: float, gas: ct.Solution) -> tuple[float, float]:
+    entropy = mass * gas.entropy_mass
+    if reactor_type == "isothermal":
+        return entropy, entropy - mass * gas.enthalpy_mass / gas.T
+    return entropy, entropy
+
+
+def equilibrium_of(gas: ct.Solution, reactor_type: str, mass: float) -> EquilibriumState:
+    """Cantera's equilibrium with the reactor's pair held fixed, from the gas's current state.
+
+    The gas state is restored afterwards.
+    """
+    saved = gas.state
+    try:
+        gas.equilibrate(_HELD_FIXED[reactor_type])
+        s, phi = _potential(reactor_type, mass, gas)
+        return EquilibriumState(gas.T, gas.P, mass / gas.density, gas.X.copy(), s, phi)
+    finally:
+        gas.state = saved
+
+
+def relax(
+    gas: ct.Solution,
+    info: MechanismInfo,
+    reactor_type: str,
+    temperature: float,
+    pressure: float,
+    mole_fractions,
+    settings: RelaxSettings = RelaxSettings(),
+) -> Relaxation:
+    """Relax one initial state to equilibrium and integrate the entropy production of each reaction.
+
+    Parameters
+    ----------
+    gas : Cantera Solution of the mechanism (its state is overwritten).
+    info : :func:`sigmagrid.mechanism.describe` of the same mechanism.
+    reactor_type : one of :data:`REACTOR_TYPES`.
+    temperature : K; pressure : Pa; mole_fractions : dict or array.
+
+    Returns
+    -------
+    Relaxation with status ``relaxed``, ``not-relaxed`` (maximum time or step budget reached) or
+    ``failed`` (the solver's or equilibrium solver's message in ``reason``). Never raises for a
+    solver failure: the path computed so far is kept.
+    """
+    if reactor_type not in REACTOR_TYPES:
+        raise ValueError(f"reactor type must be one of {REACTOR_TYPES}, not {reactor_type!r}")
+    started = _time.perf_counter()
+    gas.TPX = temperature, pressure, mole_fractions
+    mass = gas.density * settings.volume
+    nr = gas.n_reactions
+    energy0 = _held_energy(reactor_type, gas)
+    tracker = SignTracker(info)
+
+    times, temps, pressures, densities, ys, entropies, potentials, sigmas = ([] for _ in range(8))
+    produced = np.zeros(nr)
+
+    def record(t: float, volume: float) -> np.ndarray:
+        T = gas.T
+        A = -gas.delta_gibbs * PER_KMOL
+        q = gas.net_rates_of_progress * KMOL
+        sigma_j = A * q / T
+        s, phi = _potential(reactor_type, mass, gas)
+        times.append(t)
+        temps.append(T)
+        pressures.append(gas.P)
+        densities.append(gas.density)
+        ys.append(gas.Y)
+        entropies.append(s)
+        potentials.append(phi)
+        sigmas.append(float(sigma_j.sum()))
+        tracker.update(sigma_j)
+        return sigma_j * volume
+
+    def result(status: str, reason: str, equilibrium) -> Relaxation:
+        relaxation = Relaxation(
+            reactor=reactor_type, status=status, reason=reason, mass=mass,
+            time=np.asarray(times), temperature=np.asarray(temps), pressure=np.asarray(pressures),
+            density=np.asarray(densities), mass_fractions=np.asarray(ys).reshape(len(times), gas.n_species),
+            entropy=np.asarray(entropies), potential=np.asarray(potentials),
+            entropy_production_total=np.asarray(sigmas), entropy_produced=produced,
+            equilibrium=equilibrium, audit=tracker.audit(produced),
+            molecular_weights=gas.molecular_weights, ignition_rise=settings.ignition_rise,
+            energy_drift=(_held_energy(reactor_type, gas) - energy0) / abs(energy0) if energy0 else float("nan"),
+            wall_seconds=_time.perf_counter() - started,
+        )
+        return relaxation
+
+    try:
+        equilibrium = equilibrium_of(gas, reactor_type, mass)
+    except ct.CanteraError as err:
+        record(0.0, settings.volume)
+        return result("failed", f"equilibrium solver: {_first_line(err)}", None)
+
+    previous = record(0.0, settings.volume)
+    phi0 = potentials[0]
+    drive = equilibrium.potential - phi0
+    probe = result("relaxed", "", equilibrium)
+    if probe.at_equilibrium_start:
+        return result("relaxed", "initial state is already at equilibrium: no entropy to produce, "
+                      "progress undefined", equilibrium)
+    if drive < 0:
+        # Cannot happen for a consistent thermo set; say so rather than integrate nonsense.
+        return result("failed", f"equilibrium potential below the initial one by {-drive:.3e} J/K "
+                      "(inconsistent thermodynamic data?)", equilibrium)
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)
+        reactor = _make_reactor(reactor_type, gas, settings.volume)
+        net = ct.ReactorNet([reactor])
+    net.rtol = settings.rtol
+    net.atol = settings.atol
+    target = settings.progress_tolerance * drive
+    t_prev = 0.0
+    checks = 0
+    status, reason = "not-relaxed", f"maximum time {settings.max_time:g} s reached before equilibrium"
+    try:
+        for _ in range(settings.max_steps):
+            t = net.step()  # the last step may end past max_time by one solver step
+            current = record(t, reactor.volume)
+            produced += 0.5 * (t - t_prev) * (previous + current)
+            previous, t_prev = current, t
+            deficit = equilibrium.potential - potentials[-1]
+            if deficit <= target:
+                status, reason = "relaxed", ""
+                break
+            checks += 1
+            if deficit <= 1e4 * target and checks % 25 == 0 and _settled(gas, reactor_type, mass, potentials[-1], target):
+                # The reactor conserves its own U (or H) only to the accuracy of the thermo data:
+                # NASA polynomials jump slightly at their midpoint temperature. Judge the end
+                # against the equilibrium of the energy the reactor actually holds.
+                status, reason = "relaxed", ""
+                break
+            if t >= settings.max_time:
+                break
+        else:
+            reason = f"step budget of {settings.max_steps} solver steps used before equilibrium"
+    except ct.CanteraError as err:
+        status, reason = "failed", f"reactor integration at t = {t_prev:.4g} s: {_first_line(err)}"
+    return result(status, reason, equilibrium)
+
+
+def _settled(gas: ct.Solution, reactor_type: str, mass: float, potential: float, target: float) -> bool:
+    saved = gas.state
+    try:
+        # CVODE leaves round-off negative mass fractions that upset the equilibrium solver
+        gas.TDY = gas.T, gas.density, np.clip(gas.Y, 0.0, None)
+        local = equilibrium_of(gas, reactor_type, mass)
+    except ct.CanteraError:
+        return False
+    finally:
+        gas.state = saved
+    return local.potential - potential <= target
+
+
+def _first_line(err: Exception) -> str:
+    lines = [ln.strip() for ln in str(err).splitlines() if ln.strip() and not set(ln.strip()) <= set("*-")]
+    return " ".join(lines)[:500] or type(err).__name__
