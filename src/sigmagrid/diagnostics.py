@@ -147,7 +147,7 @@ class SignTracker:
     def audit(self, produced: np.ndarray) -> SignAudit:
         peak = self.peak_total if self.peak_total > 0 else 1.0
         total_abs = float(np.abs(produced).sum())
-        negative = float(-produced[produced < 0].sum())
+        negative = float(-produced[produced < 0].sum()) + 0.0  # + 0.0 turns -0.0 into 0.0
         members = np.flatnonzero(self.in_group & self.info.reversible & (self.member_min < -1e-12 * peak))
         return SignAudit(
             n_irreversible=self.info.n_irreversible,

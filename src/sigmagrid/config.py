@@ -1,0 +1,160 @@
+"""Reading and checking a grid configuration before anything runs.
+
+Two passes: the JSON Schema in ``workflow/schemas/config.schema.yaml`` (types, ranges, unknown keys),
+then the checks only Cantera can make (the mechanism loads, species exist, compositions parse).
+Every failure is an :class:`~sigmagrid.errors.InputError` naming the field.
+"""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import json
+import math
+import re
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+import jsonschema
+import yaml
+
+from .errors import InputError
+
+DEFAULTS: dict[str, Any] = {
+    "study": "",
+    "stop": {"max_time": 10.0, "progress_tolerance": 1e-8, "ignition_rise": 50.0},
+    "solver": {"rtol": 1e-10, "atol": 1e-20, "max_steps": 200_000},
+    "reactor_volume": 1e-3,
+    "storage": {"max_samples": 500},
+    "batch": {"cases_per_job": 8, "max_cases": 20_000},
+}
+
+
+class _Loader(yaml.SafeLoader):
+    """YAML 1.1 reads 1e-8 as a string; people mean a number. Resolve floats as YAML 1.2 does."""
+
+
+_Loader.add_implicit_resolver(
+    "tag:yaml.org,2002:float",
+    re.compile(r"""^(?:[-+]?(?:[0-9][0-9_]*)\.[0-9_]*(?:[eE][-+]?[0-9]+)?
+    |[-+]?(?:[0-9][0-9_]*)(?:[eE][-+]?[0-9]+)
+    |\.[0-9_]+(?:[eE][-+]?[0-9]+)?
+    |[-+]?\.(?:inf|Inf|INF)
+    |\.(?:nan|NaN|NAN))$""", re.X),
+    list("-+0123456789."),
+)
+
+
+def read_yaml(text: str):
+    return yaml.load(text, Loader=_Loader)  # noqa: S506 - a SafeLoader subclass
+
+
+def schema() -> dict:
+    """The config's JSON Schema (shipped with the package, the same file as workflow/schemas)."""
+    text = resources.files("sigmagrid").joinpath("schema/config.schema.yaml").read_text()
+    return read_yaml(text)
+
+
+def _field_path(error: jsonschema.ValidationError) -> str:
+    path = ""
+    for part in error.absolute_path:
+        path += f"[{part}]" if isinstance(part, int) else (f".{part}" if path else str(part))
+    return path or "config"
+
+
+def _describe(error: jsonschema.ValidationError) -> tuple[str, str]:
+    """A field name and a message a person can act on, for one schema violation."""
+    field = _field_path(error)
+    sch, val = error.schema, error.instance
+    kind = error.validator
+    if kind == "additionalProperties":
+        allowed = sorted(sch.get("properties", {}))
+        extra = sorted(set(val) - set(allowed)) if isinstance(val, dict) else []
+        where = f"{field}." if field != "config" else ""
+        return (f"{where}{extra[0]}" if extra else field,
+                f"unknown key{'s' if len(extra) > 1 else ''} {', '.join(map(repr, extra))}; allowed keys: {', '.join(allowed)}")
+    if kind == "required":
+        missing = [k for k in sch.get("required", []) if isinstance(val, dict) and k not in val]
+        where = f"{field}." if field != "config" else ""
+        return f"{where}{missing[0] if missing else '?'}", "is required but missing"
+    if kind == "enum":
+        return field, f"{val!r} is not allowed; allowed values: {', '.join(map(str, sch['enum']))}"
+    if kind == "type":
+        return field, f"must be of type {sch['type']}, got {type(val).__name__} {val!r}"
+    if kind in ("exclusiveMinimum", "minimum", "exclusiveMaximum", "maximum"):
+        sign = {"exclusiveMinimum": ">", "minimum": ">=", "exclusiveMaximum": "<", "maximum": "<="}[kind]
+        return field, f"must be {sign} {sch[kind]}, got {val!r}"
+    if kind == "minItems":
+        return field, f"must list at least {sch['minItems']} value(s); it is empty"
+    if kind == "uniqueItems":
+        return field, f"lists a value twice: {val!r}"
+    if kind in ("minLength", "pattern"):
+        return field, f"{val!r} is not a valid value ({error.message})"
+    return field, error.message
+
+
+def _reject_non_finite(node: Any, path: str = "config") -> None:
+    # YAML reads .nan and .inf as floats; the schema's ranges do not catch NaN.
+    if isinstance(node, float) and not math.isfinite(node):
+        raise InputError(path, f"must be a finite number, got {node!r}")
+    if isinstance(node, dict):
+        for key, value in node.items():
+            _reject_non_finite(value, f"{path}.{key}" if path != "config" else str(key))
+    elif isinstance(node, list):
+        for i, value in enumerate(node):
+            _reject_non_finite(value, f"{path}[{i}]")
+
+
+_FLOAT_TEXT = re.compile(r"^[-+]?(?:\d+\.?\d*|\.\d+)[eE][-+]?\d+$")
+
+
+def _numbers_from_text(node: Any, key: str = "") -> Any:
+    # Loaders that follow YAML 1.1 (Snakemake's among them) leave 1e-8 as text.
+    if isinstance(node, str) and key not in ("study", "name", "composition", "fuel", "oxidizer", "mechanism") \
+            and _FLOAT_TEXT.match(node.strip()):
+        return float(node)
+    if isinstance(node, dict):
+        return {k: _numbers_from_text(v, k) for k, v in node.items()}
+    if isinstance(node, list):
+        return [_numbers_from_text(v, key) for v in node]
+    return node
+
+
+def validate(raw: Any) -> dict:
+    """Schema-check a config mapping and fill in the defaults. Raises InputError."""
+    if not isinstance(raw, dict):
+        raise InputError("config", f"must be a mapping of keys to values, got {type(raw).__name__}")
+    raw = _numbers_from_text(raw)
+    _reject_non_finite(raw)
+    validator = jsonschema.Draft202012Validator(schema())
+    errors = sorted(validator.iter_errors(raw), key=lambda e: (len(list(e.absolute_path)), str(e.absolute_path)))
+    if errors:
+        raise InputError(*_describe(errors[0]))
+    if "feed" not in raw and "compositions" not in raw:
+        raise InputError("feed", "give a feed (fuel, oxidizer, equivalence_ratio) or a list of compositions")
+    merged = copy.deepcopy(DEFAULTS)
+    for key, value in raw.items():
+        if isinstance(value, dict) and isinstance(merged.get(key), dict):
+            merged[key].update(value)
+        else:
+            merged[key] = copy.deepcopy(value)
+    return merged
+
+
+def load(path: str | Path) -> dict:
+    """Read a YAML config file and validate it."""
+    path = Path(path)
+    if not path.is_file():
+        raise InputError("config file", f"'{path}' does not exist")
+    try:
+        raw = read_yaml(path.read_text())
+    except yaml.YAMLError as err:
+        raise InputError("config file", f"'{path}' is not valid YAML: {err}") from None
+    return validate(raw)
+
+
+def config_hash(config: dict) -> str:
+    """sha256 of the validated config in canonical JSON: the same settings give the same hash."""
+    text = json.dumps(config, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode()).hexdigest()

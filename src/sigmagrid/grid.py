@@ -1,0 +1,164 @@
+"""From a validated config to the list of cases, each with a stable id and a readable label."""
+
+from __future__ import annotations
+
+import hashlib
+import itertools
+import json
+import math
+import re
+import warnings
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+import cantera as ct
+import numpy as np
+
+from . import mechanism
+from .errors import InputError
+
+
+@dataclass(frozen=True)
+class Case:
+    """One initial state in one reactor type."""
+
+    case_id: str
+    label: str
+    reactor: str
+    temperature: float  # K
+    pressure: float  # Pa
+    equivalence_ratio: float  # 1 (element-based for explicit compositions; NaN without fuel or oxidizer)
+    composition_name: str
+    composition: str  # normalized mole fractions, "S1:x1,S2:x2", 12 significant digits
+
+    def mole_fractions(self) -> dict[str, float]:
+        return parse_composition(self.composition, "composition")
+
+    def as_row(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class Grid:
+    mechanism_path: Path
+    mechanism_sha256: str
+    cases: tuple[Case, ...]
+
+    def batches(self, cases_per_job: int) -> list[tuple[Case, ...]]:
+        """Cases in fixed-size batches, in id order so a batch's members do not depend on dict order."""
+        ordered = sorted(self.cases, key=lambda c: c.case_id)
+        return [tuple(ordered[i:i + cases_per_job]) for i in range(0, len(ordered), cases_per_job)]
+
+
+_NUMBER = r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?"
+_ITEM = re.compile(rf"^\s*([A-Za-z][A-Za-z0-9_()*+\-,']*?)\s*:\s*({_NUMBER})\s*$")
+
+
+def parse_composition(text: str, field: str) -> dict[str, float]:
+    """Parse 'H2:2, O2:1, N2:3.76' into {species: amount}; amounts must be finite and >= 0."""
+    if not isinstance(text, str) or not text.strip():
+        raise InputError(field, "must be a composition like 'H2:2,O2:1,N2:3.76'")
+    out: dict[str, float] = {}
+    for part in text.split(","):
+        match = _ITEM.match(part)
+        if not match:
+            raise InputError(field, f"cannot read {part.strip()!r} in {text!r}: write SPECIES:AMOUNT pairs "
+                             "separated by commas, e.g. 'H2:2,O2:1,N2:3.76'")
+        name, value = match.group(1), float(match.group(2))
+        if not math.isfinite(value) or value < 0:
+            raise InputError(field, f"amount of {name} must be a finite number >= 0, got {match.group(2)}")
+        if name in out:
+            raise InputError(field, f"species {name} is listed twice in {text!r}")
+        out[name] = value
+    if sum(out.values()) <= 0:
+        raise InputError(field, f"amounts in {text!r} add up to zero")
+    return out
+
+
+def check_species(amounts: dict[str, float], gas: ct.Solution, field: str) -> None:
+    known = set(gas.species_names)
+    unknown = [s for s in amounts if s not in known]
+    if unknown:
+        sample = ", ".join(gas.species_names[:12]) + (", ..." if gas.n_species > 12 else "")
+        raise InputError(field, f"unknown species {', '.join(unknown)} for this mechanism; "
+                         f"its species are: {sample}")
+
+
+def _normalized(gas: ct.Solution) -> str:
+    return ",".join(f"{name}:{x:.12g}" for name, x in zip(gas.species_names, gas.X) if x > 0)
+
+
+def case_id(mechanism_sha256: str, reactor: str, temperature: float, pressure: float, composition: str) -> str:
+    """16 hex digits of sha256 over the physical definition and the mechanism's content."""
+    key = json.dumps({"mechanism": mechanism_sha256, "reactor": reactor, "T": f"{temperature:.10g}",
+                      "P": f"{pressure:.10g}", "X": composition}, sort_keys=True)
+    return hashlib.sha256(key.encode()).hexdigest()[:16]
+
+
+def _label(reactor: str, name: str, temperature: float, pressure: float) -> str:
+    return f"{reactor}_{name}_T{temperature:g}K_P{pressure / 1e5:g}bar"
+
+
+def expand(config: dict) -> Grid:
+    """All cases of a validated config (see :func:`sigmagrid.config.validate`). Raises InputError."""
+    path = mechanism.resolve(config["mechanism"])
+    gas = mechanism.load(path)
+    sha = mechanism.file_sha256(path)
+    mixtures: list[tuple[str, float, str]] = []  # (name, phi, normalized composition)
+
+    feed = config.get("feed")
+    if feed:
+        fuel = parse_composition(feed["fuel"], "feed.fuel")
+        oxidizer = parse_composition(feed["oxidizer"], "feed.oxidizer")
+        check_species(fuel, gas, "feed.fuel")
+        check_species(oxidizer, gas, "feed.oxidizer")
+        for i, phi in enumerate(feed["equivalence_ratio"]):
+            try:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    gas.set_equivalence_ratio(phi, fuel, oxidizer)
+            except ct.CanteraError as err:
+                raise InputError(f"feed.equivalence_ratio[{i}]",
+                                 f"cannot mix fuel {feed['fuel']!r} with oxidizer {feed['oxidizer']!r} at "
+                                 f"{phi:g}: {str(err).strip().splitlines()[-1][:200]}") from None
+            if not np.all(np.isfinite(gas.X)):
+                raise InputError("feed", f"fuel {feed['fuel']!r} and oxidizer {feed['oxidizer']!r} do not define "
+                                 "an equivalence ratio (does the oxidizer contain oxygen and the fuel burn?)")
+            mixtures.append((f"phi{phi:g}", float(phi), _normalized(gas)))
+
+    for i, entry in enumerate(config.get("compositions", [])):
+        field = f"compositions[{i}].composition"
+        amounts = parse_composition(entry["composition"], field)
+        check_species(amounts, gas, field)
+        gas.TPX = 300.0, ct.one_atm, amounts
+        try:
+            phi = float(gas.equivalence_ratio())
+        except ct.CanteraError:
+            phi = float("nan")
+        mixtures.append((entry["name"], phi if math.isfinite(phi) else float("nan"), _normalized(gas)))
+
+    names = [m[0] for m in mixtures]
+    if len(set(names)) != len(names):
+        dup = next(n for n in names if names.count(n) > 1)
+        raise InputError("compositions", f"mixture name {dup!r} is used twice")
+
+    cases = []
+    for reactor, (name, phi, comp), temperature, pressure in itertools.product(
+            config["reactors"], mixtures, config["temperature"], config["pressure"]):
+        cases.append(Case(
+            case_id=case_id(sha, reactor, float(temperature), float(pressure), comp),
+            label=_label(reactor, name, float(temperature), float(pressure)),
+            reactor=reactor, temperature=float(temperature), pressure=float(pressure),
+            equivalence_ratio=phi, composition_name=name, composition=comp,
+        ))
+    if not cases:
+        raise InputError("grid", "the config expands to no cases")
+    limit = config["batch"]["max_cases"]
+    if len(cases) > limit:
+        raise InputError("batch.max_cases", f"the grid has {len(cases)} cases, more than the limit {limit}; "
+                         "raise batch.max_cases if this is intended")
+    ids = [c.case_id for c in cases]
+    if len(set(ids)) != len(ids):
+        raise InputError("grid", "two grid points describe the same physical case (same composition, "
+                         "temperature, pressure and reactor); remove the duplicate")
+    return Grid(mechanism_path=path, mechanism_sha256=sha, cases=tuple(cases))

@@ -1,0 +1,54 @@
+"""Readable text about a case file, for ``sigmagrid show``."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from . import safety, store
+
+
+def _fmt(value: float, unit: str, spec: str = ".4g") -> str:
+    return "missing" if not np.isfinite(value) else f"{value:{spec}} {unit}"
+
+
+def describe_case(path, top: int = 8) -> str:
+    """Status, checks, headline numbers, the reactions that produce the most entropy, provenance."""
+    ds = store.open_case(path)
+    a = ds.attrs
+    lines = [f"case {a['case_id']}  {a['label']}",
+             f"  status            {a['status']}" + (f": {a['reason']}" if a.get("reason") else ""),
+             f"  reactor           {a['reactor']}; T0 {a['initial_temperature']:g} K, P0 {a['initial_pressure']:g} Pa, "
+             f"phi {a['equivalence_ratio']:.4g}",
+             f"  composition       {a['composition']}",
+             f"  balance residual  {_fmt(float(ds['balance_residual']), '', '.2e')}(|dS - sum I_j| / dS)",
+             f"  ignition delay    {_fmt(float(ds['ignition_delay']), 's')}",
+             f"  T at equilibrium  {_fmt(float(ds['equilibrium_temperature']), 'K', '.2f')}"
+             f"  (end of run {_fmt(float(ds['final_temperature']), 'K', '.2f')})",
+             "  time to progress  " + ", ".join(
+                 f"{int(100 * lv)} %: {_fmt(float(t), 's')}" for lv, t in
+                 zip(ds["progress_level"].values, ds["time_to_progress"].values)),
+             f"  entropy produced  {_fmt(float(ds['entropy_produced_total']), 'J/K')}",
+             f"  irreversible      {a.get('n_irreversible_reactions', '?')} reaction(s); negative share "
+             f"{_fmt(float(ds['negative_entropy_share']), '', '.2e')}"]
+    if a.get("negative_duplicate_members"):
+        lines.append(f"  duplicate members with negative entropy production: {a['negative_duplicate_members']}")
+    produced = ds["entropy_produced"].values
+    total = np.nansum(produced)
+    if np.isfinite(produced).any() and total != 0:
+        order = np.argsort(-np.nan_to_num(produced, nan=-np.inf))[:top]
+        lines.append(f"  top {len(order)} reactions by entropy produced:")
+        for j in order:
+            lines.append(f"    {produced[j] / total:8.2%}  {produced[j]:10.3e} J/K  {ds['reaction'].values[j]}")
+    ratio = float(ds["closed_vessel_pressure_ratio"])
+    lines += ["  safety:",
+              f"    flammable range at ambient: {a.get('flammability_at_ambient', 'unknown')} "
+              f"({a.get('flammability_note', '')})"]
+    if np.isfinite(ratio):
+        lines.append(f"    closed-vessel pressure ratio P_eq/P0: {ratio:.2f}")
+    lines.append("    caution: " + safety.CAUTION)
+    lines += ["  provenance:",
+              f"    mechanism {a.get('mechanism', '?')} sha256 {a.get('mechanism_sha256', '?')}",
+              f"    config sha256 {a.get('config_sha256', '') or '(none)'}",
+              f"    sigmagrid {a.get('sigmagrid_version', '?')}, Cantera {a.get('cantera_version', '?')}, "
+              f"Python {a.get('python_version', '?')}, numpy {a.get('numpy_version', '?')}"]
+    return "\n".join(lines)

@@ -1,0 +1,157 @@
+"""Running cases: one case to one file, a batch of cases, a whole grid without Snakemake.
+
+A case that fails is written as a file with status ``failed`` and the reason; it never stops
+the other cases of its batch.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import sys
+import time
+import traceback
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+import cantera as ct
+import numpy as np
+import xarray as xr
+
+from . import __version__, config as config_mod, diagnostics, grid as grid_mod, mechanism, safety, store
+from .reactors import Relaxation, RelaxSettings, relax
+
+
+@dataclass(frozen=True)
+class RunSettings:
+    relax: RelaxSettings
+    max_samples: int = 500
+
+    @classmethod
+    def from_config(cls, config: dict) -> "RunSettings":
+        stop, solver = config["stop"], config["solver"]
+        return cls(
+            relax=RelaxSettings(max_time=float(stop["max_time"]), progress_tolerance=float(stop["progress_tolerance"]),
+                                ignition_rise=float(stop["ignition_rise"]), rtol=float(solver["rtol"]),
+                                atol=float(solver["atol"]), max_steps=int(solver["max_steps"]),
+                                volume=float(config["reactor_volume"])),
+            max_samples=int(config["storage"]["max_samples"]),
+        )
+
+
+def provenance(mechanism_path: Path, mechanism_sha256: str, config_sha256: str = "", study: str = "") -> dict:
+    return {
+        "mechanism": mechanism_path.name, "mechanism_path": str(mechanism_path),
+        "mechanism_sha256": mechanism_sha256, "config_sha256": config_sha256,
+        "sigmagrid_version": __version__, "cantera_version": ct.__version__,
+        "python_version": sys.version.split()[0], "numpy_version": np.__version__, "study": study,
+        "created": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+    }
+
+
+def _failed_relaxation(gas: ct.Solution, case: grid_mod.Case, reason: str, settings: RelaxSettings) -> Relaxation:
+    gas.TPX = case.temperature, case.pressure, case.mole_fractions()
+    one = np.array
+    return Relaxation(
+        reactor=case.reactor, status="failed", reason=reason, mass=gas.density * settings.volume,
+        time=one([0.0]), temperature=one([gas.T]), pressure=one([gas.P]), density=one([gas.density]),
+        mass_fractions=gas.Y[None, :].copy(), entropy=one([np.nan]), potential=one([np.nan]),
+        entropy_production_total=one([np.nan]), entropy_produced=np.full(gas.n_reactions, np.nan),
+        equilibrium=None, audit=None, molecular_weights=gas.molecular_weights,
+    )
+
+
+def run_case(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInfo, settings: RunSettings,
+             meta: dict) -> xr.Dataset:
+    """Relax one case and build its Dataset. Never raises for a failing case: status says it."""
+    mole_fractions = case.mole_fractions()
+    try:
+        relaxation = relax(gas, info, case.reactor, case.temperature, case.pressure, mole_fractions, settings.relax)
+    except Exception as err:  # noqa: BLE001 - recorded, not hidden
+        relaxation = _failed_relaxation(gas, case, f"{type(err).__name__}: {err}", settings.relax)
+    ignition_index = ()
+    if np.isfinite(relaxation.ignition_delay):
+        ignition_index = (int(np.searchsorted(relaxation.time, relaxation.ignition_delay)),)
+    idx = store.choose_samples(relaxation.time, relaxation.progress, relaxation.temperature,
+                               settings.max_samples, keep=ignition_index)
+    state = diagnostics.evaluate(gas, relaxation.temperature[idx], relaxation.density[idx],
+                                 np.clip(relaxation.mass_fractions[idx], 0.0, None))
+    screen = safety.screen_flammability(mole_fractions)
+    eq = relaxation.equilibrium
+    return store.case_dataset(
+        case=case, relaxation=relaxation, reaction_state=state, sample_index=idx, info=info,
+        equations=info.equations, species=info.species,
+        equilibrium_mole_fractions=eq.mole_fractions if eq else None, flammability=screen, provenance=meta,
+    )
+
+
+def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
+              report: Callable[[str], None] = print, skip_existing: bool = False) -> list[Path]:
+    """Run cases one after the other, writing ``<out_dir>/<case_id>.nc`` atomically for each."""
+    out_dir = Path(out_dir)
+    path = mechanism.resolve(config["mechanism"])
+    sha = mechanism.file_sha256(path)
+    gas = mechanism.load(path)
+    info = mechanism.describe(gas)
+    settings = RunSettings.from_config(config)
+    meta = provenance(path, sha, config_mod.config_hash(config), config.get("study", ""))
+    written = []
+    for n, case in enumerate(cases, 1):
+        target = out_dir / f"{case.case_id}.nc"
+        if skip_existing and target.is_file():
+            written.append(target)
+            continue
+        started = time.perf_counter()
+        ds = run_case_to_file(case, gas, info, settings, meta, target)
+        written.append(target)
+        why = f" ({ds.attrs['reason']})" if ds.attrs["reason"] else ""
+        report(f"[{n}/{len(cases)}] {case.label}: {ds.attrs['status']} in {time.perf_counter() - started:.2f} s, "
+               f"balance residual {float(ds['balance_residual']):.1e}{why}")
+    return written
+
+
+def run_case_to_file(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInfo,
+                     settings: RunSettings, meta: dict, target: str | Path) -> xr.Dataset:
+    """Run one case and write its file atomically; an internal error becomes a failed case file."""
+    try:
+        ds = run_case(case, gas, info, settings, meta)
+    except Exception:  # noqa: BLE001 - a bug of ours must not cost the other cases
+        reason = "internal error: " + traceback.format_exc(limit=3).strip().splitlines()[-1]
+        relaxation = _failed_relaxation(gas, case, reason, settings.relax)
+        state = diagnostics.evaluate(gas, relaxation.temperature, relaxation.density, relaxation.mass_fractions)
+        ds = store.case_dataset(case=case, relaxation=relaxation, reaction_state=state, sample_index=[0],
+                                info=info, equations=info.equations, species=info.species,
+                                equilibrium_mole_fractions=None,
+                                flammability=safety.screen_flammability(case.mole_fractions()), provenance=meta)
+    store.write_atomic(ds, target)
+    return ds
+
+
+def run_single(config: dict, case: grid_mod.Case, target: str | Path) -> xr.Dataset:
+    """One case of a validated config to one file."""
+    path = mechanism.resolve(config["mechanism"])
+    gas = mechanism.load(path)
+    meta = provenance(path, mechanism.file_sha256(path), config_mod.config_hash(config), config.get("study", ""))
+    return run_case_to_file(case, gas, mechanism.describe(gas), RunSettings.from_config(config), meta, target)
+
+
+def write_summary(case_files: list[str | Path], summary_path: str | Path, table_path: str | Path) -> xr.Dataset:
+    """Combine case files into ``summary.nc`` and ``cases.csv`` (both written atomically)."""
+    summary, table = store.summarize(case_files)
+    store.write_atomic(summary, summary_path)
+    units = {name: u for name, (u, _) in store.SCALARS.items()}
+    renamed = table.rename(columns={
+        **{name: f"{name} [{u}]" for name, u in units.items()},
+        "initial_temperature": "initial_temperature [K]", "initial_pressure": "initial_pressure [Pa]",
+        "equivalence_ratio": "equivalence_ratio [1]",
+        **{f"time_to_{lv}pct": f"time_to_{lv}pct [s]" for lv in (50, 90, 99)}})
+    store.write_text_atomic(renamed.to_csv(index=False, float_format="%.8g"), table_path)
+    return summary
+
+
+def run_grid(config: dict, results: str | Path = "results", report: Callable[[str], None] = print) -> xr.Dataset:
+    """The whole job in one process: every case, then the summary. Reruns skip finished case files."""
+    results = Path(results)
+    grid = grid_mod.expand(config)
+    files = run_cases(config, list(grid.cases), results / "cases", report=report, skip_existing=True)
+    return write_summary(files, results / "summary.nc", results / "cases.csv")

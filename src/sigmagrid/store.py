@@ -1,0 +1,308 @@
+"""The netCDF layout of a case file and of the grid summary; atomic writes; combining cases.
+
+Files follow the CF 1.10 conventions where they apply: every variable has ``units`` (UDUNITS-2
+spelling) and ``long_name``; provenance sits in the global attributes. The store knows nothing of
+how the cases were scheduled.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from .units import UNITS
+
+CONVENTIONS = "CF-1.10"
+
+#: Per-case scalar variables copied into the summary and cases.csv: name -> (units, long name).
+SCALARS = {
+    "balance_residual": ("1", "relative entropy balance residual |Delta Phi - sum_j I_j| / Delta Phi"),
+    "ignition_delay": ("s", "ignition delay (time of largest dT/dt)"),
+    "equilibrium_temperature": ("K", "temperature at equilibrium with the reactor's pair held fixed"),
+    "equilibrium_pressure": ("Pa", "pressure at equilibrium with the reactor's pair held fixed"),
+    "final_temperature": ("K", "temperature at the end of the integration"),
+    "entropy_change": ("J K-1", "change of the reactor's potential Phi over the case (S, or S - H/T isothermal)"),
+    "entropy_produced_total": ("J K-1", "sum over reactions of the entropy produced"),
+    "energy_drift": ("1", "relative change of the held energy (U isolated, H constant-pressure)"),
+    "negative_entropy_share": ("1", "share of the entropy production that is negative (irreversible reactions)"),
+    "worst_reversible_ratio": ("1", "lowest sigma_j / peak sigma of any reversible, non-duplicate reaction"),
+    "worst_duplicate_group_ratio": ("1", "lowest summed sigma / peak sigma of any reversible duplicate group"),
+    "closed_vessel_pressure_ratio": ("1", "adiabatic closed-vessel pressure ratio P_eq / P_0 (isolated cases)"),
+    "solver_steps": ("1", "number of solver steps"),
+    "wall_time": ("s", "wall-clock time of the relaxation"),
+}
+
+
+def choose_samples(time: np.ndarray, progress: np.ndarray, temperature: np.ndarray, budget: int,
+                   keep: tuple[int, ...] = ()) -> np.ndarray:
+    """Indices of at most ``budget`` samples of a full path, placed where the path changes.
+
+    Arc length is measured in progress, in log time and in temperature (each normalized to its
+    range), so samples crowd around ignition and the early induction, not uniformly in time. The
+    first and last steps and the indices in ``keep`` are always included.
+    """
+    n = time.size
+    if n <= budget:
+        return np.arange(n)
+    positive = time[time > 0]
+    t_floor = positive[0] if positive.size else 1.0
+    logt = np.log(np.maximum(time, t_floor))
+    parts = [np.abs(np.diff(logt)) / max(np.ptp(logt), 1e-300)]
+    if np.isfinite(progress).all():
+        parts.append(np.abs(np.diff(progress)))
+    parts.append(np.abs(np.diff(temperature)) / max(np.ptp(temperature), 1e-300))
+    step = np.sum(parts, axis=0)
+    arc = np.concatenate([[0.0], np.cumsum(step)])
+    fixed = np.unique(np.array([0, n - 1, *[k for k in keep if 0 <= k < n]], dtype=int))
+    free = budget - fixed.size
+    if arc[-1] <= 0 or free <= 0:
+        chosen = np.linspace(0, n - 1, budget).round().astype(int)
+        return np.unique(np.concatenate([fixed, chosen]))[:budget]
+    # a few rounds: duplicates from crowded arcs free budget for the next round
+    count = free
+    for _ in range(8):
+        targets = np.linspace(0.0, arc[-1], count + 2)[1:-1]
+        idx = np.unique(np.concatenate([fixed, np.searchsorted(arc, targets).clip(0, n - 1)]))
+        if idx.size >= budget or count >= 4 * budget:
+            break
+        count += budget - idx.size
+    if idx.size > budget:
+        extra = np.setdiff1d(idx, fixed)
+        take = np.linspace(0, extra.size - 1, budget - fixed.size).round().astype(int)
+        idx = np.unique(np.concatenate([fixed, extra[take]]))
+    return idx
+
+
+def _attrs(units: str, long_name: str, **extra) -> dict:
+    return {"units": units, "long_name": long_name, **extra}
+
+
+def write_atomic(ds: xr.Dataset, path: str | Path, compress: bool = True) -> Path:
+    """Write a Dataset to netCDF under a temporary name in the same folder, then rename.
+
+    A killed process leaves at most a ``.tmp-*`` file, never a half-written ``path``.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    encoding = {}
+    for name, var in ds.variables.items():
+        if var.dtype.kind in "fiu" and var.ndim >= 1 and compress:
+            enc = {"zlib": True, "complevel": 4, "shuffle": True}
+            if var.ndim >= 1 and var.size > 0:
+                enc["chunksizes"] = tuple(min(s, 512) if i == 0 else s for i, s in enumerate(var.shape))
+            encoding[name] = enc
+        if var.dtype.kind == "f":
+            encoding.setdefault(name, {})["_FillValue"] = np.nan
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp-nc", dir=path.parent)
+    os.close(fd)
+    try:
+        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
+        os.chmod(tmp, 0o644)  # mkstemp makes it private; results are for the team
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path
+
+
+def write_text_atomic(text: str, path: str | Path) -> Path:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    with os.fdopen(fd, "w") as handle:
+        handle.write(text)
+    os.chmod(tmp, 0o644)
+    os.replace(tmp, path)
+    return path
+
+
+CASE_COORDS = ("case_id", "label", "reactor", "composition_name", "equivalence_ratio",
+               "initial_temperature", "initial_pressure", "status")
+
+
+def open_case(path: str | Path) -> xr.Dataset:
+    """Open a case file fully into memory (the file is closed afterwards)."""
+    with xr.open_dataset(path) as ds:
+        return ds.load()
+
+
+def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
+    """Combine case files into the grid summary and the cases table.
+
+    Returns the summary Dataset (dimensions case x reaction) and a DataFrame, one row per case.
+    Cases whose file does not open are listed with status ``failed`` and the reason.
+    """
+    rows, produced, reactions, attrs = [], [], None, {}
+    for path in sorted(map(Path, paths)):
+        try:
+            ds = open_case(path)
+        except Exception as err:  # a damaged file must not stop the summary
+            rows.append({"case_id": path.stem, "status": "failed", "reason": f"unreadable case file: {err}"})
+            produced.append(None)
+            continue
+        if reactions is None:
+            reactions = list(ds["reaction"].values)
+            attrs = {k: ds.attrs[k] for k in ("mechanism", "mechanism_sha256", "config_sha256",
+                                               "sigmagrid_version", "cantera_version", "study") if k in ds.attrs}
+        row = {"case_id": ds.attrs["case_id"], "label": ds.attrs["label"], "reactor": ds.attrs["reactor"],
+               "composition_name": ds.attrs["composition_name"], "composition": ds.attrs["composition"],
+               "equivalence_ratio": float(ds.attrs["equivalence_ratio"]),
+               "initial_temperature": float(ds.attrs["initial_temperature"]),
+               "initial_pressure": float(ds.attrs["initial_pressure"]),
+               "status": ds.attrs["status"], "reason": ds.attrs.get("reason", ""),
+               "flammability_at_ambient": ds.attrs.get("flammability_at_ambient", "unknown")}
+        for name in SCALARS:
+            row[name] = float(ds[name]) if name in ds else np.nan
+        for level in (50, 90, 99):
+            row[f"time_to_{level}pct"] = float(ds["time_to_progress"].sel(progress_level=level / 100)) \
+                if "time_to_progress" in ds else np.nan
+        rows.append(row)
+        produced.append(ds["entropy_produced"].values if "entropy_produced" in ds else None)
+    table = pd.DataFrame(rows)
+    if reactions is None:
+        raise ValueError("no readable case file: nothing to summarize")
+    nr = len(reactions)
+    matrix = np.array([p if p is not None and len(p) == nr else np.full(nr, np.nan) for p in produced])
+    totals = matrix.sum(axis=1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(totals != 0, matrix / totals, np.nan)
+    table = table.fillna({"label": table["case_id"], "reactor": "", "composition_name": "", "composition": "",
+                          "reason": "", "flammability_at_ambient": "unknown"})
+    coords = {
+        "case": ("case", table["case_id"].to_numpy(str), {"long_name": "case id"}),
+        "reaction": ("reaction", np.array(reactions, dtype=str), {"long_name": "reaction equation"}),
+        "label": ("case", table["label"].to_numpy(str), {"long_name": "case label"}),
+        "reactor": ("case", table["reactor"].to_numpy(str), {"long_name": "reactor type"}),
+        "composition_name": ("case", table["composition_name"].to_numpy(str), {"long_name": "mixture name"}),
+        "equivalence_ratio": ("case", table["equivalence_ratio"].to_numpy(float),
+                              _attrs("1", "equivalence ratio")),
+        "initial_temperature": ("case", table["initial_temperature"].to_numpy(float),
+                                _attrs("K", "initial temperature")),
+        "initial_pressure": ("case", table["initial_pressure"].to_numpy(float), _attrs("Pa", "initial pressure")),
+        "status": ("case", table["status"].to_numpy(str), {"long_name": "case status: relaxed, not-relaxed or failed"}),
+    }
+    data = {
+        "entropy_produced": (("case", "reaction"), matrix,
+                             _attrs("J K-1", "entropy produced by each reaction over the case")),
+        "entropy_share": (("case", "reaction"), share,
+                          _attrs("1", "integrated share of each reaction in the entropy produced (sums to 1)")),
+        "reason": ("case", table["reason"].to_numpy(str), {"long_name": "why a case did not relax"}),
+    }
+    for name, (units, long_name) in SCALARS.items():
+        data[name] = ("case", table[name].to_numpy(float), _attrs(units, long_name))
+    for level in (50, 90, 99):
+        data[f"time_to_{level}pct"] = ("case", table[f"time_to_{level}pct"].to_numpy(float),
+                                       _attrs("s", f"time to reach {level} % progress"))
+    summary = xr.Dataset(data, coords=coords, attrs={
+        "Conventions": CONVENTIONS, "title": f"sigmagrid grid summary {attrs.get('study', '')}".strip(),
+        "source": "sigmagrid", "history": f"combined from {len(paths)} case files", **attrs})
+    return summary, table
+
+
+def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equations, species,
+                 equilibrium_mole_fractions, flammability, provenance: dict) -> xr.Dataset:
+    """The per-case Dataset: stored samples of the path, their diagnostics, and the case's scalars.
+
+    ``reaction_state`` holds the diagnostics at the stored samples (see
+    :func:`sigmagrid.diagnostics.evaluate`); integrals come from the full-resolution path.
+    """
+    r = relaxation
+    idx = np.asarray(sample_index, dtype=int)
+    f32 = np.float32
+    n_species = len(species)
+    mw = r.molecular_weights
+    y = r.mass_fractions[idx]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        moles = np.clip(y, 0.0, None) / mw
+        x = moles / moles.sum(axis=1, keepdims=True) if y.size else y
+    progress_levels = np.array([0.5, 0.9, 0.99])
+    times_to = np.array([r.progress_time(level) for level in progress_levels])
+    audit = r.audit
+    eq = r.equilibrium
+    scalars = {
+        "balance_residual": r.balance_residual,
+        "ignition_delay": r.ignition_delay,
+        "equilibrium_temperature": eq.temperature if eq else np.nan,
+        "equilibrium_pressure": eq.pressure if eq else np.nan,
+        "final_temperature": float(r.temperature[-1]) if r.time.size else np.nan,
+        "entropy_change": float(r.potential[-1] - r.potential[0]) if r.time.size else np.nan,
+        "entropy_produced_total": float(r.entropy_produced.sum()),
+        "energy_drift": r.energy_drift,
+        "negative_entropy_share": audit.negative_share if audit else np.nan,
+        "worst_reversible_ratio": audit.worst_reversible_ratio if audit else np.nan,
+        "worst_duplicate_group_ratio": audit.worst_group_ratio if audit else np.nan,
+        "closed_vessel_pressure_ratio": (eq.pressure / case.pressure) if (eq and case.reactor == "isolated") else np.nan,
+        "solver_steps": float(r.n_steps),
+        "wall_time": r.wall_seconds,
+    }
+    data = {
+        "temperature": ("time", r.temperature[idx], _attrs("K", "temperature", standard_name="air_temperature")),
+        "pressure": ("time", r.pressure[idx], _attrs("Pa", "pressure", standard_name="air_pressure")),
+        "volume": ("time", r.volume[idx], _attrs("m3", "reactor volume")),
+        "density": ("time", r.density[idx], _attrs("kg m-3", "density")),
+        "entropy": ("time", r.entropy[idx], _attrs("J K-1", "total entropy of the reactor contents")),
+        "potential": ("time", r.potential[idx],
+                      _attrs("J K-1", "potential that grows to its equilibrium maximum: S (adiabatic), S - H/T (isothermal)")),
+        "progress": ("time", r.progress[idx], _attrs("1", "progress (Phi - Phi_0)/(Phi_eq - Phi_0)")),
+        "mole_fraction": (("time", "species"), x.astype(f32), _attrs("1", "mole fraction")),
+        "affinity": (("time", "reaction"), reaction_state.affinity.astype(f32),
+                     _attrs("J mol-1", "affinity A_j = -sum_k nu_kj mu_k")),
+        "disequilibrium": (("time", "reaction"), reaction_state.disequilibrium.astype(f32),
+                           _attrs("1", "degree of disequilibrium x_j = A_j / (R T)")),
+        "forward_rate": (("time", "reaction"), reaction_state.forward_rate.astype(f32),
+                         _attrs("mol m-3 s-1", "forward rate of progress")),
+        "reverse_rate": (("time", "reaction"), reaction_state.reverse_rate.astype(f32),
+                         _attrs("mol m-3 s-1", "reverse rate of progress")),
+        "net_rate": (("time", "reaction"), reaction_state.net_rate.astype(f32),
+                     _attrs("mol m-3 s-1", "net rate of progress q_j")),
+        "entropy_production": (("time", "reaction"), reaction_state.entropy_production.astype(f32),
+                               _attrs("W m-3 K-1", "entropy production density of each reaction A_j q_j / T")),
+        "entropy_production_total": ("time", reaction_state.entropy_production.sum(axis=1),
+                                     _attrs("W m-3 K-1", "total entropy production density")),
+        "entropy_produced": ("reaction", r.entropy_produced,
+                             _attrs("J K-1", "entropy produced by each reaction: integral of V sigma_j dt "
+                                    "over the full-resolution path")),
+        "reversible": ("reaction", info.reversible.astype(np.int8),
+                       {"long_name": "reaction is reversible", "units": "1",
+                        "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "irreversible reversible"}),
+        "duplicate_group": ("reaction", info.duplicate_group.astype(np.int32),
+                            _attrs("1", "index of the first member of the reaction's duplicate group")),
+        "negative_prefactor": ("reaction", info.negative_prefactor.astype(np.int8),
+                               {"long_name": "Arrhenius pre-exponential factor is negative", "units": "1",
+                                "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "positive negative"}),
+        "equilibrium_mole_fraction": ("species", np.asarray(equilibrium_mole_fractions, dtype=float)
+                                      if equilibrium_mole_fractions is not None else np.full(n_species, np.nan),
+                                      _attrs("1", "mole fraction at equilibrium")),
+        "time_to_progress": ("progress_level", times_to, _attrs("s", "first time the progress reaches the level")),
+    }
+    for name, (units, long_name) in SCALARS.items():
+        data[name] = ((), float(scalars[name]), _attrs(units, long_name))
+    coords = {
+        "time": ("time", r.time[idx], {"units": "s", "long_name": "time since the start of the relaxation"}),
+        "species": ("species", np.array(species, dtype=str), {"long_name": "species name"}),
+        "reaction": ("reaction", np.array(equations, dtype=str), {"long_name": "reaction equation"}),
+        "progress_level": ("progress_level", progress_levels, _attrs("1", "progress level")),
+    }
+    attrs = {
+        "Conventions": CONVENTIONS,
+        "title": f"sigmagrid case {case.label}",
+        "institution": "sigmagrid users",
+        "source": f"sigmagrid {provenance.get('sigmagrid_version', '')} with Cantera {provenance.get('cantera_version', '')}",
+        "history": f"created by sigmagrid on {provenance.get('created', '')}",
+        "references": "de Groot and Mazur (1962) Non-Equilibrium Thermodynamics; DESIGN of sigmagrid",
+        "comment": "Model output. Not a basis for vessel design, venting or hazard classification.",
+        "case_id": case.case_id, "label": case.label, "reactor": case.reactor,
+        "composition_name": case.composition_name, "composition": case.composition,
+        "equivalence_ratio": case.equivalence_ratio, "initial_temperature": case.temperature,
+        "initial_pressure": case.pressure, "status": r.status, "reason": r.reason,
+        "n_irreversible_reactions": int(audit.n_irreversible) if audit else -1,
+        "negative_duplicate_members": ", ".join(equations[j] for j in audit.negative_members) if audit else "",
+        "flammability_at_ambient": flammability.verdict, "flammability_note": flammability.reason,
+        **{k: v for k, v in provenance.items() if k != "created"},
+    }
+    return xr.Dataset(data, coords=coords, attrs=attrs)
