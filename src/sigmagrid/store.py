@@ -97,7 +97,8 @@ def write_atomic(ds: xr.Dataset, path: str | Path, compress: bool = True) -> Pat
                 enc["chunksizes"] = tuple(min(s, 512) if i == 0 else s for i, s in enumerate(var.shape))
             encoding[name] = enc
         if var.dtype.kind == "f":
-            encoding.setdefault(name, {})["_FillValue"] = np.nan
+            # CF: coordinate variables carry no fill value; data variables mark missing as NaN
+            encoding.setdefault(name, {})["_FillValue"] = None if name in ds.dims else np.nan
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp-nc", dir=path.parent)
     os.close(fd)
     try:
@@ -283,7 +284,11 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
     for name, (units, long_name) in SCALARS.items():
         data[name] = ((), float(scalars[name]), _attrs(units, long_name))
     coords = {
-        "time": ("time", r.time[idx], {"units": "s", "long_name": "time since the start of the relaxation"}),
+        # Elapsed time in plain seconds: a CF reference date ("s since ...") would make every
+        # netCDF reader decode it to calendar dates at ns resolution and merge the sub-ns samples of
+        # the induction period. The CF checker's §4.4 reference-date rule is the one rule not met.
+        "time": ("time", r.time[idx], {"units": "s", "long_name": "time since the start of the relaxation",
+                                       "standard_name": "time", "axis": "T"}),
         "species": ("species", np.array(species, dtype=str), {"long_name": "species name"}),
         "reaction": ("reaction", np.array(equations, dtype=str), {"long_name": "reaction equation"}),
         "progress_level": ("progress_level", progress_levels, _attrs("1", "progress level")),
