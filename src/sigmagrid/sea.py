@@ -321,10 +321,12 @@ class _System:
     def _set_T(self, T, y, first):
         g = self.gas
         if self.reactor == "isolated":
+            # density of the actual amounts, so that concentrations are N/V also off the element
+            # manifold (where the BDF Newton iteration probes the right-hand side)
             if first:
-                g.TDY = T, self.mass / self.volume, y
+                g.TDY = T, self._mass_n / self.volume, y
             else:
-                g.TD = T, self.mass / self.volume
+                g.TD = T, self._mass_n / self.volume
         else:
             if first:
                 g.TPY = T, self.pressure, y
@@ -334,7 +336,8 @@ class _System:
     def _set(self, n, newton=True):
         """Set the gas to amounts n (mol) and the constrained temperature; returns T (K)."""
         y = n * self.mw
-        y = y / y.sum()
+        self._mass_n = float(y.sum())  # kg, mass of the amounts n
+        y = y / self._mass_n
         T = self.temperature
         self._set_T(T, y, True)
         if newton and self.reactor != "isothermal":
@@ -360,7 +363,7 @@ class _System:
         """Amounts (mol), T (K), V (m3) of z, with the gas set there."""
         n = self.amounts(z)
         T = self._set(n)
-        V = self.volume if self.reactor == "isolated" else self.mass / self.gas.density
+        V = self.volume if self.reactor == "isolated" else self._mass_n / self.gas.density
         return n, T, V
 
     # dynamics -----------------------------------------------------------------------------
@@ -446,13 +449,13 @@ class _System:
     def potential(self):
         """Phi of the current gas state, J/K: S (adiabatic) or S - H/T (isothermal)."""
         g = self.gas
-        s = self.mass * g.entropy_mass
-        return s - self.mass * g.enthalpy_mass / g.T if self.reactor == "isothermal" else s
+        s = self._mass_n * g.entropy_mass
+        return s - self._mass_n * g.enthalpy_mass / g.T if self.reactor == "isothermal" else s
 
     def held_energy(self):
         """U or H of the current gas state from Cantera's mixture properties, J."""
         g = self.gas
-        return self.mass * (g.int_energy_mass if self.reactor == "isolated" else g.enthalpy_mass)
+        return self._mass_n * (g.int_energy_mass if self.reactor == "isolated" else g.enthalpy_mass)
 
 
 class _Projector:
@@ -478,7 +481,10 @@ class _Projector:
             res = E @ na - tgt
             if np.all(np.abs(res) <= 4e-16 * np.abs(tgt)):
                 break
-            lam = np.linalg.lstsq((E * na) @ E.T, -res, rcond=None)[0]
+            try:
+                lam = np.linalg.solve((E * na) @ E.T, -res)
+            except np.linalg.LinAlgError:  # dependent element rows
+                lam = np.linalg.lstsq((E * na) @ E.T, -res, rcond=None)[0]
             na = na * np.exp(E.T @ lam)
         out = n.copy()
         out[self.active] = na
@@ -820,10 +826,11 @@ def _compare(gas, info, rel, sample_index, settings):
         align_full[metric] = alignment(xi, qi, Mc)
 
     # entropy-production ratio observed / largest at equal cost, along the path (entropy-weighted)
+    # over the compared part of the path (progress >= start_progress), where no species is absent
     w_s = path_weights("entropy", rel.time, rel.potential, lam)
     ep_ratio = {}
     for metric, a in align_full.items():
-        use = w_s > 0
+        use = (w_s > 0) & (lam >= settings.start_progress)
         with np.errstate(divide="ignore", invalid="ignore"):
             largest = np.where(a[use] > 0, w_s[use] / a[use], np.inf)
         ep_ratio[metric] = float(w_s[use].sum() / largest.sum()) if use.any() else float("nan")
