@@ -27,9 +27,9 @@ def _load_config(path: str) -> dict:
 
     if path.endswith(".json"):
         try:
-            raw = json.loads(Path(path).read_text())
-        except (OSError, json.JSONDecodeError) as err:
-            raise InputError("config file", f"cannot read '{path}': {err}") from None
+            raw = json.loads(config_mod.read_config_text(path))
+        except (json.JSONDecodeError, RecursionError) as err:
+            raise InputError("config file", f"'{path}' is not valid JSON: {err}") from None
         return config_mod.validate(raw)
     return config_mod.load(path)
 

@@ -32,7 +32,18 @@ DEFAULTS: dict[str, Any] = {
 
 
 class _Loader(yaml.SafeLoader):
-    """YAML 1.1 reads 1e-8 as a string; people mean a number. Resolve floats as YAML 1.2 does."""
+    """YAML 1.1 reads 1e-8 as a string; people mean a number. Resolve floats as YAML 1.2 does.
+
+    Aliases (``*name``) are refused: a config never needs them, and nested ones can expand to
+    billions of nodes.
+    """
+
+    def compose_node(self, parent, index):
+        if self.check_event(yaml.AliasEvent):
+            event = self.peek_event()
+            raise yaml.constructor.ConstructorError(None, None, "aliases (*name) are not allowed in a config",
+                                                    event.start_mark)
+        return super().compose_node(parent, index)
 
 
 _Loader.add_implicit_resolver(
@@ -46,8 +57,16 @@ _Loader.add_implicit_resolver(
 )
 
 
-def read_yaml(text: str):
-    return yaml.load(text, Loader=_Loader)  # noqa: S506 - a SafeLoader subclass
+def read_yaml(text: str, source: str = ""):
+    """Parse YAML text; with ``source`` (a file name for the message) errors become InputError."""
+    if not source:
+        return yaml.load(text, Loader=_Loader)  # noqa: S506 - a SafeLoader subclass
+    try:
+        return yaml.load(text, Loader=_Loader)  # noqa: S506
+    except yaml.YAMLError as err:
+        raise InputError("config file", f"{source} is not valid YAML: {' '.join(str(err).split())}") from None
+    except RecursionError:
+        raise InputError("config file", f"{source} is nested too deeply to be a config") from None
 
 
 def schema() -> dict:
@@ -125,8 +144,11 @@ def validate(raw: Any) -> dict:
     """Schema-check a config mapping and fill in the defaults. Raises InputError."""
     if not isinstance(raw, dict):
         raise InputError("config", f"must be a mapping of keys to values, got {type(raw).__name__}")
-    raw = _numbers_from_text(raw)
-    _reject_non_finite(raw)
+    try:
+        raw = _numbers_from_text(raw)
+        _reject_non_finite(raw)
+    except RecursionError:
+        raise InputError("config", "is nested too deeply to be a config") from None
     validator = jsonschema.Draft202012Validator(schema())
     errors = sorted(validator.iter_errors(raw), key=lambda e: (len(list(e.absolute_path)), str(e.absolute_path)))
     if errors:
@@ -144,14 +166,28 @@ def validate(raw: Any) -> dict:
 
 def load(path: str | Path) -> dict:
     """Read a YAML config file and validate it."""
+    return validate(read_yaml(read_config_text(path), f"'{path}'"))
+
+
+#: Largest accepted config file, bytes (a grid config is a few hundred bytes).
+MAX_CONFIG_BYTES = 1024 * 1024
+
+
+def read_config_text(path: str | Path) -> str:
+    """The text of a config file; a missing, special, huge or non-UTF-8 file is an InputError."""
     path = Path(path)
-    if not path.is_file():
+    if not path.exists():
         raise InputError("config file", f"'{path}' does not exist")
+    if not path.is_file():
+        raise InputError("config file", f"'{path}' is not a regular file")
+    if path.stat().st_size > MAX_CONFIG_BYTES:
+        raise InputError("config file", f"'{path}' is larger than {MAX_CONFIG_BYTES // 1024} KiB; is it a config?")
     try:
-        raw = read_yaml(path.read_text())
-    except yaml.YAMLError as err:
-        raise InputError("config file", f"'{path}' is not valid YAML: {err}") from None
-    return validate(raw)
+        return path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as err:
+        raise InputError("config file", f"'{path}' is not UTF-8 text ({err.reason} at byte {err.start})") from None
+    except OSError as err:
+        raise InputError("config file", f"cannot read '{path}': {err.strerror}") from None
 
 
 def config_hash(config: dict) -> str:

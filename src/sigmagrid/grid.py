@@ -99,9 +99,19 @@ def _label(reactor: str, name: str, temperature: float, pressure: float) -> str:
     return f"{reactor}_{name}_T{temperature:g}K_P{pressure / 1e5:g}bar"
 
 
-def expand(config: dict) -> Grid:
-    """All cases of a validated config (see :func:`sigmagrid.config.validate`). Raises InputError."""
-    path = mechanism.resolve(config["mechanism"])
+def expand(config: dict, project_root: str | Path | None = None) -> Grid:
+    """All cases of a validated config (see :func:`sigmagrid.config.validate`). Raises InputError.
+
+    ``project_root``: if given, a mechanism file must lie inside it (see :func:`mechanism.resolve`).
+    """
+    # Count before building anything: a typo such as a 10^6-long axis must fail at once.
+    n_mixtures = len(config.get("feed", {}).get("equivalence_ratio", [])) + len(config.get("compositions", []))
+    n_cases = len(config["reactors"]) * n_mixtures * len(config["temperature"]) * len(config["pressure"])
+    limit = config["batch"]["max_cases"]
+    if n_cases > limit:
+        raise InputError("batch.max_cases", f"the grid has {n_cases} cases, more than the limit {limit}; "
+                         "raise batch.max_cases if this is intended")
+    path = mechanism.resolve(config["mechanism"], root=project_root)
     gas = mechanism.load(path)
     sha = mechanism.file_sha256(path)
     mixtures: list[tuple[str, float, str]] = []  # (name, phi, normalized composition)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import os
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -13,15 +14,25 @@ import numpy as np
 from .errors import InputError
 
 
-def resolve(name: str, field_name: str = "mechanism") -> Path:
+def resolve(name: str, field_name: str = "mechanism", root: str | Path | None = None) -> Path:
     """Path of a mechanism given as a file path or as a name Cantera ships (``gri30.yaml``).
 
-    A path that exists (relative to the working directory) wins over a shipped name.
+    A path that exists (relative to the working directory) wins over a shipped name. With
+    ``root`` (the workflow passes its project folder) a file path must lie inside that folder, as
+    written: a run is then reproducible from the project folder alone.
     """
     if not isinstance(name, str) or not name.strip():
         raise InputError(field_name, "must be a mechanism file path or a name Cantera ships, e.g. 'h2o2.yaml'")
     candidate = Path(name).expanduser()
+    if candidate.exists() and not candidate.is_file():
+        raise InputError(field_name, f"'{name}' is not a regular file (a folder or a device?)")
     if candidate.is_file():
+        if root is not None:
+            inside = Path(os.path.abspath(candidate))
+            if not inside.is_relative_to(Path(os.path.abspath(root))):
+                raise InputError(field_name, f"'{name}' lies outside the project folder '{root}'; copy the "
+                                 "mechanism into the project (so the run can be reproduced from it) or use a "
+                                 "name Cantera ships")
         return candidate.resolve()
     if not candidate.is_absolute():
         for folder in ct.get_data_directories():
@@ -40,8 +51,61 @@ def file_sha256(path: Path) -> str:
     return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
+#: Largest accepted mechanism file, bytes: guards against pointing the config at a device or a dump.
+MAX_FILE_BYTES = 200 * 1024 * 1024
+
+#: Jumps of cp/R, h/RT or s/R between the two NASA7 ranges at the midpoint temperature.
+#: Shipped mechanisms (h2o2.yaml, gri30.yaml) stay below 2e-5; above NOTE the case files carry a
+#: warning, above REFUSE the data are taken to be wrong (a typo in a coefficient) and refused.
+THERMO_GAP_NOTE = 1e-4
+THERMO_GAP_REFUSE = 0.05
+
+
+def check_file(path: Path, field_name: str = "mechanism") -> None:
+    """Refuse what is not a regular, readable file of sensible size, before Cantera opens it."""
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(field_name, f"'{path}' is not a regular file")
+    size = path.stat().st_size
+    if size == 0:
+        raise InputError(field_name, f"'{path}' is empty")
+    if size > MAX_FILE_BYTES:
+        raise InputError(field_name, f"'{path}' is {size / 2**20:.0f} MiB, more than a mechanism file can be "
+                         f"({MAX_FILE_BYTES / 2**20:.0f} MiB)")
+
+
+def thermo_gaps(gas: ct.Solution) -> list[tuple[str, float, float]]:
+    """Species whose NASA7 ranges disagree at the midpoint: (name, T_mid in K, largest jump).
+
+    The jump is the largest of |Delta cp/R|, |Delta h/(R T_mid)| and |Delta s/R| between the
+    low- and high-temperature polynomials at T_mid (all dimensionless). Other thermo types are
+    not checked.
+    """
+    out = []
+    for sp in gas.species():
+        thermo = sp.thermo
+        coeffs = np.asarray(getattr(thermo, "coeffs", ()), dtype=float)
+        if type(thermo).__name__ != "NasaPoly2" or coeffs.size != 15:
+            continue
+        t_mid = float(coeffs[0])
+        below, above = t_mid * (1 - 1e-12), t_mid * (1 + 1e-12)
+        jumps = ((thermo.cp(above) - thermo.cp(below)) / ct.gas_constant,
+                 (thermo.h(above) - thermo.h(below)) / (ct.gas_constant * t_mid),
+                 (thermo.s(above) - thermo.s(below)) / ct.gas_constant)
+        worst = float(np.max(np.abs(jumps)))
+        if not np.isfinite(worst) or worst > THERMO_GAP_NOTE:
+            out.append((sp.name, t_mid, worst))
+    return out
+
+
 def load(path: Path, field_name: str = "mechanism") -> ct.Solution:
-    """A new ``ct.Solution`` for the mechanism file; parse errors become an :class:`InputError`."""
+    """A new ``ct.Solution`` for the mechanism file; parse errors become an :class:`InputError`.
+
+    Thermo data whose NASA7 ranges jump by more than :data:`THERMO_GAP_REFUSE` at the midpoint are
+    refused, naming the species; smaller jumps above :data:`THERMO_GAP_NOTE` are noted by
+    :func:`describe`.
+    """
+    check_file(path, field_name)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -52,6 +116,12 @@ def load(path: Path, field_name: str = "mechanism") -> ct.Solution:
         raise InputError(field_name, f"'{path}' does not load in Cantera: {detail}") from None
     if gas.n_reactions == 0:
         raise InputError(field_name, f"'{path}' has no reactions: there is nothing to relax")
+    gross = [(name, t_mid, jump) for name, t_mid, jump in thermo_gaps(gas) if not jump <= THERMO_GAP_REFUSE]
+    if gross:
+        listed = "; ".join(f"{name} at {t_mid:g} K (jump {jump:.3g})" for name, t_mid, jump in gross[:5])
+        raise InputError(field_name, f"'{path}': thermo data of {len(gross)} species disagree between their "
+                         f"two NASA7 ranges at the midpoint temperature by more than {THERMO_GAP_REFUSE:g} "
+                         f"in cp/R, h/RT or s/R: {listed}; fix the coefficients")
     return gas
 
 
@@ -86,6 +156,10 @@ def _prefactor(rate) -> float:
     for attr in ("pre_exponential_factor",):
         if hasattr(rate, attr):
             return float(getattr(rate, attr))
+    # PLOG: one Arrhenius expression per pressure; a negative one is the fitting device
+    plog = getattr(rate, "rates", None)
+    if plog:
+        return min(float(arrhenius.pre_exponential_factor) for _, arrhenius in plog)
     # falloff / chemically activated: the high-pressure limit is the physical one
     high = getattr(rate, "high_rate", None)
     if high is not None and hasattr(high, "pre_exponential_factor"):
@@ -111,6 +185,16 @@ def describe(gas: ct.Solution) -> MechanismInfo:
         notes.append(f"{int((~reversible).sum())} irreversible reaction(s): their entropy production can be negative")
     if negative.any():
         notes.append(f"{int(negative.sum())} reaction(s) with a negative pre-exponential factor")
+    in_reactions = np.zeros(gas.n_species, dtype=bool)
+    nu = gas.product_stoich_coeffs + gas.reactant_stoich_coeffs
+    in_reactions |= np.asarray(nu != 0).any(axis=1).ravel()
+    idle = [name for name, used in zip(gas.species_names, in_reactions) if not used]
+    if idle:
+        notes.append(f"species in no reaction's stoichiometry (diluents or third bodies only): {', '.join(idle)}")
+    for name, t_mid, jump in thermo_gaps(gas):
+        notes.append(f"thermo data of {name} jump by {jump:.2g} (cp/R, h/RT or s/R) between the NASA7 "
+                     f"ranges at {t_mid:g} K: energy is not conserved exactly across that temperature "
+                     "(see energy_drift)")
     return MechanismInfo(
         equations=tuple(gas.reaction_equations()),
         reversible=reversible,
