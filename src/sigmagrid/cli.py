@@ -114,6 +114,14 @@ def cmd_show(args) -> int:
     return 0
 
 
+def cmd_bench(args) -> int:
+    from . import bench
+
+    results = bench.run(quick=args.quick, report=lambda line: print(line, file=sys.stderr, flush=True))
+    print(json.dumps(results, indent=1, default=float) if args.json else bench.format_table(results))
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="sigmagrid", description="Relaxation of reacting mixtures to "
                                      "equilibrium with per-reaction entropy production, over a grid of cases.")
@@ -150,6 +158,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--max-time", type=float, default=None, help="s (default 10)")
     p.add_argument("--max-samples", type=int, default=None, help="stored samples (default 500)")
     p.set_defaults(func=cmd_case)
+
+    p = sub.add_parser("bench", help="measure the pipeline against bare Cantera (prints figures)")
+    p.add_argument("--quick", action="store_true", help="under a minute instead of under 15 minutes")
+    p.add_argument("--json", action="store_true", help="JSON for scripts instead of a table")
+    p.set_defaults(func=cmd_bench)
 
     p = sub.add_parser("show", help="readable summary of a case file")
     p.add_argument("file")

@@ -55,10 +55,10 @@ def file_sha256(path: Path) -> str:
 MAX_FILE_BYTES = 200 * 1024 * 1024
 
 #: Jumps of cp/R, h/RT or s/R between the two NASA7 ranges at the midpoint temperature.
-#: Shipped mechanisms (h2o2.yaml, gri30.yaml) stay below 2e-5; above NOTE the case files carry a
+#: h2o2.yaml and gri30.yaml stay below 2e-5, n-hexane-NUIG-2015 (shipped) reaches 0.16; above NOTE the case files carry a
 #: warning, above REFUSE the data are taken to be wrong (a typo in a coefficient) and refused.
 THERMO_GAP_NOTE = 1e-4
-THERMO_GAP_REFUSE = 0.05
+THERMO_GAP_REFUSE = 1.0  # a jump of RT in h: shipped mechanisms reach 0.16 (n-hexane-NUIG-2015, CHV)
 
 
 def check_file(path: Path, field_name: str = "mechanism") -> None:

@@ -1,0 +1,222 @@
+"""``sigmagrid bench``: what the pipeline costs on top of the chemistry, measured side by side.
+
+Each ratio is taken pair by pair (pipeline run, then the bare Cantera run of the same case, the
+order alternating), and the median over the repeats is reported, so machine noise cancels.
+Bare Cantera means the same reactor, the same tolerances, stepped to the same end time with
+``ReactorNet.step()`` and every state appended to a ``SolutionArray``: the usual way to record a
+reactor's path.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import resource
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+import warnings
+from pathlib import Path
+
+import cantera as ct
+import numpy as np
+import yaml
+
+from . import config as config_mod, grid as grid_mod, mechanism, runner
+from .reactors import make_network
+
+METHANE_AIR = {"fuel": "CH4:1", "oxidizer": "O2:1, N2:3.76"}
+LARGE_MECHANISM = "example_data/n-hexane-NUIG-2015.yaml"  # 1268 species, 5336 reactions (ships with Cantera)
+
+TARGETS = {
+    "observe_ratio": ("<=", 1.5),
+    "sea_ratio_max": ("<=", 3.0),
+    "grid_efficiency": (">=", 0.8),
+    "bytes_per_case": ("<=", 2_000_000),
+    "large_ratio": ("<=", 1.3),
+    "large_peak_memory_bytes": ("<=", 4 * 2**30),
+    "query_seconds": ("<=", 1.0),
+}
+
+
+def _methane_config(**overrides) -> dict:
+    raw = {"study": "benchmark: methane-air ignition", "mechanism": "gri30.yaml", "reactors": ["isolated"],
+           "feed": dict(METHANE_AIR, equivalence_ratio=[1.0]), "temperature": [1300.0],
+           "pressure": [ct.one_atm], "stop": {"max_time": 1.0}}
+    raw.update(overrides)
+    return config_mod.validate(raw)
+
+
+def bare_cantera(gas: ct.Solution, case: grid_mod.Case, settings, end_time: float) -> float:
+    """Wall time of the usual Cantera loop: step() to ``end_time``, append each state. Seconds."""
+    gas.TPX = case.temperature, case.pressure, case.mole_fractions()
+    started = time.perf_counter()
+    reactor, net = make_network(case.reactor, gas, settings)
+    states = ct.SolutionArray(gas, extra=["t"])
+    while net.time < end_time:
+        net.step()
+        states.append(reactor.phase.state if hasattr(reactor, "phase") else reactor.thermo.state, t=net.time)
+    return time.perf_counter() - started
+
+
+def _pipeline_once(config: dict, case: grid_mod.Case, folder: Path) -> tuple[float, float, int]:
+    """(wall seconds, end time of the path, file bytes) of one case through the pipeline."""
+    target = folder / f"{case.case_id}.nc"
+    started = time.perf_counter()
+    ds = runner.run_single(config, case, target)
+    elapsed = time.perf_counter() - started
+    return elapsed, float(ds["time"][-1]), target.stat().st_size
+
+
+def observe_ratio(repeats: int, config: dict | None = None) -> dict:
+    """Per-case pipeline without SEA (relax, diagnostics, file) against bare Cantera."""
+    config = config or _methane_config()
+    case = grid_mod.expand(config).cases[0]
+    gas = mechanism.load(mechanism.resolve(config["mechanism"]))
+    settings = runner.RunSettings.from_config(config).relax
+    ratios, ours, bare, size = [], [], [], 0
+    with tempfile.TemporaryDirectory() as tmp:
+        _, end, _ = _pipeline_once(config, case, Path(tmp))  # warm-up; fixes the common end time
+        for i in range(repeats):
+            if i % 2:  # alternate the order so drifts in machine speed cancel
+                t_bare = bare_cantera(gas, case, settings, end)
+                t_ours, _, size = _pipeline_once(config, case, Path(tmp))
+            else:
+                t_ours, _, size = _pipeline_once(config, case, Path(tmp))
+                t_bare = bare_cantera(gas, case, settings, end)
+            ours.append(t_ours)
+            bare.append(t_bare)
+            ratios.append(t_ours / t_bare)
+    return {"observe_ratio": statistics.median(ratios), "observe_seconds": statistics.median(ours),
+            "bare_seconds": statistics.median(bare), "bytes_per_case": size,
+            "observe_case": f"{case.label} ({config['mechanism']})"}
+
+
+def grid_config(n_cases: int) -> dict:
+    """A methane-air grid on gri30.yaml with about ``n_cases`` cases (SEA off)."""
+    n_phi = 5
+    n_t = 5 if n_cases >= 100 else 2
+    n_p = max(1, round(n_cases / (2 * n_phi * n_t)))
+    return _methane_config(
+        reactors=["isolated", "constant-pressure"],
+        feed=dict(METHANE_AIR, equivalence_ratio=[round(x, 3) for x in np.linspace(0.7, 1.3, n_phi)]),
+        temperature=[float(t) for t in np.linspace(1200.0, 1600.0, n_t)],
+        pressure=[float(p) for p in np.geomspace(ct.one_atm, 20 * ct.one_atm, n_p)],
+        batch={"cases_per_job": max(1, (2 * n_phi * n_t * n_p) // 16)},
+    )
+
+
+def _snakemake(workdir: Path, cores: int = 2) -> tuple[float, int]:
+    """Wall time of a Snakemake run of the repository's workflow in ``workdir``; peak RSS of any job."""
+    repo = Path(__file__).resolve().parents[2]
+    started = time.perf_counter()
+    proc = subprocess.Popen([sys.executable, "-m", "snakemake", "--cores", str(cores), "-q", "-s",
+                             str(repo / "Snakefile"), "-d", str(workdir),
+                             "--configfile", str(workdir / "config.yaml")],
+                            stdout=subprocess.PIPE, stderr=subprocess.STDOUT)
+    output, _ = proc.communicate()
+    elapsed = time.perf_counter() - started
+    if proc.returncode != 0:
+        raise RuntimeError("snakemake failed:\n" + output.decode(errors="replace")[-2000:])
+    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024
+    return elapsed, peak
+
+
+def grid_efficiency(n_cases: int) -> dict:
+    """Serial in-process time / 2 against the wall time through Snakemake on 2 cores."""
+    config = grid_config(n_cases)
+    cases = list(grid_mod.expand(config).cases)
+    with tempfile.TemporaryDirectory() as tmp:
+        started = time.perf_counter()
+        runner.run_cases(config, cases, Path(tmp) / "serial", report=lambda s: None)
+        serial = time.perf_counter() - started
+        work = Path(tmp) / "flow"
+        work.mkdir()
+        (work / "config.yaml").write_text(yaml.safe_dump(json.loads(json.dumps(config))))
+        wall, peak = _snakemake(work)
+    return {"grid_efficiency": (serial / 2) / wall, "grid_cases": len(cases), "grid_serial_seconds": serial,
+            "grid_snakemake_seconds": wall, "job_peak_memory_bytes": peak}
+
+
+def _large_worker(max_time: float, out: str) -> None:
+    # run in a child process so its peak memory is its own
+    config = config_mod.validate({
+        "mechanism": LARGE_MECHANISM, "reactors": ["constant-pressure"],
+        "feed": {"fuel": "NC6H14:1", "oxidizer": "O2:1, N2:3.76", "equivalence_ratio": [1.0]},
+        "temperature": [1000.0], "pressure": [10 * ct.one_atm], "stop": {"max_time": max_time},
+        "solver": {"rtol": 1e-8, "atol": 1e-16}})
+    case = grid_mod.expand(config).cases[0]
+    with tempfile.TemporaryDirectory() as tmp:
+        t_ours, end, size = _pipeline_once(config, case, Path(tmp))
+    gas = mechanism.load(mechanism.resolve(LARGE_MECHANISM))
+    t_bare = bare_cantera(gas, case, runner.RunSettings.from_config(config).relax, end)
+    Path(out).write_text(json.dumps({"ours": t_ours, "bare": t_bare, "bytes": size, "species": gas.n_species,
+                                     "reactions": gas.n_reactions}))
+
+
+def large_ratio(repeats: int, max_time: float) -> dict:
+    ratios, peaks, info = [], [], {}
+    for _ in range(repeats):
+        with tempfile.NamedTemporaryFile(suffix=".json") as handle:
+            proc = subprocess.Popen([sys.executable, "-c", "import sys; from sigmagrid.bench import _large_worker; "
+                                     f"_large_worker({max_time!r}, {handle.name!r})"])
+            _, status, usage = os.wait4(proc.pid, 0)
+            if status != 0:
+                raise RuntimeError("large-mechanism benchmark failed")
+            info = json.loads(Path(handle.name).read_text())
+        ratios.append(info["ours"] / info["bare"])
+        peaks.append(usage.ru_maxrss * 1024)
+    return {"large_ratio": statistics.median(ratios), "large_peak_memory_bytes": max(peaks),
+            "large_mechanism": f"{Path(LARGE_MECHANISM).name} ({info['species']} species, "
+                               f"{info['reactions']} reactions)", "large_seconds": info["ours"],
+            "large_bytes_per_case": info["bytes"]}
+
+
+def check_targets(results: dict) -> dict:
+    verdict = {}
+    for key, (op, limit) in TARGETS.items():
+        if key in results and results[key] is not None:
+            value = results[key]
+            verdict[key] = bool(value <= limit if op == "<=" else value >= limit)
+    return verdict
+
+
+def run(quick: bool = False, report=print) -> dict:
+    """All measurements; ``quick`` takes under a minute, the full run under 15 minutes."""
+    warnings.simplefilter("ignore")
+    results: dict = {"quick": quick, "cantera_version": ct.__version__, "cpu_count": os.cpu_count()}
+    report("observe: gri30 case, pipeline vs bare Cantera ...")
+    results.update(observe_ratio(3 if quick else 7))
+    report("grid: serial in-process vs Snakemake on 2 cores ...")
+    results.update(grid_efficiency(20 if quick else 200))
+    report("large mechanism: sparse preconditioned solver ...")
+    results.update(large_ratio(1 if quick else 3, 0.002 if quick else 0.02))
+    results["targets_met"] = check_targets(results)
+    return results
+
+
+def format_table(results: dict) -> str:
+    rows = [("observe_ratio", "pipeline / bare Cantera, one gri30 case", "1"),
+            ("observe_seconds", "pipeline time per case", "s"),
+            ("bytes_per_case", "case file size", "B"),
+            ("grid_efficiency", "(serial time / 2) / Snakemake wall time", "1"),
+            ("grid_snakemake_seconds", f"Snakemake wall time, {results.get('grid_cases')} cases", "s"),
+            ("job_peak_memory_bytes", "peak memory of a job", "B"),
+            ("large_ratio", f"pipeline / bare Cantera, {results.get('large_mechanism')}", "1"),
+            ("large_peak_memory_bytes", "peak memory, large case", "B"),
+            ("query_seconds", "top-reactions query, 1000-case summary", "s")]
+    rows += [(k, f"SEA path / bare Cantera, metric {k[10:]}", "1") for k in results if k.startswith("sea_ratio_")
+             and k != "sea_ratio_max"]
+    met = results.get("targets_met", {})
+    lines = [f"{'figure':26} {'value':>14}  {'unit':4}  {'target':10}  what"]
+    for key, what, unit in rows:
+        if key not in results:
+            continue
+        value = results[key]
+        target = TARGETS.get(key)
+        mark = "" if key not in met else ("met" if met[key] else "MISSED")
+        target_text = f"{target[0]} {target[1]:g} {mark}" if target else ""
+        lines.append(f"{key:26} {value:14.4g}  {unit:4}  {target_text:10}  {what}")
+    return "\n".join(lines)
