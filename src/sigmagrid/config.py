@@ -28,6 +28,11 @@ DEFAULTS: dict[str, Any] = {
     "reactor_volume": 1e-3,
     "storage": {"max_samples": 500},
     "batch": {"cases_per_job": 8, "max_cases": 20_000},
+    "progress_grid": {"points": 101},
+    "reduction": {"criteria": ["local"], "thresholds": [0.0, 0.001, 0.01, 0.1], "negligible": 1e-3,
+                  "negative_entropy": "keep", "keep_species": [], "validate": True, "validation_cases": {},
+                  "max_ignition_delay_error": 0.05, "max_equilibrium_temperature_error": 2.0,
+                  "max_entropy_produced_error": 0.02},
 }
 
 
