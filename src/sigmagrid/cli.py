@@ -168,6 +168,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("file")
     p.add_argument("--top", type=int, default=8, help="how many reactions to list")
     p.set_defaults(func=cmd_show)
+
+    from . import cli_rank  # resample, rank, cut, assess-cut, cut-report, reduce, query
+
+    cli_rank.add_commands(sub)
     return parser
 
 

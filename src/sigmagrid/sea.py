@@ -43,6 +43,7 @@ from dataclasses import dataclass
 import cantera as ct
 import numpy as np
 import xarray as xr
+from scipy import sparse
 from scipy.integrate import BDF
 from scipy.optimize import brentq
 
@@ -76,6 +77,8 @@ class SeaSettings:
     max_steps : step budget of one SEA path.
     max_wall_seconds : s, wall-clock budget of one SEA path.
     n_modes : number of slowest relaxation rates stored.
+    trace_level : 1, amount (over the total) below which a constant or arrhenius mobility is scaled
+        down like mass action (see ``_System._trace``); 0 switches it off.
     """
 
     metrics: tuple[str, ...] = METRICS
@@ -89,6 +92,7 @@ class SeaSettings:
     max_steps: int = 20_000
     max_wall_seconds: float = 120.0
     n_modes: int = 10
+    trace_level: float = 1e-14
 
     def check(self) -> None:
         """Raise ``ValueError`` naming the bad field."""
@@ -279,7 +283,7 @@ class _System:
     """
 
     def __init__(self, gas, reactor, mass, n_start, active, reactions, reversible_in, volume, pressure,
-                 temperature, mobility: _Mobility):
+                 temperature, mobility: _Mobility, trace_level: float = 0.0):
         self.gas = gas
         self.reactor = reactor
         self.mass = mass  # kg
@@ -290,6 +294,10 @@ class _System:
         self.reversible_in = reversible_in  # Cantera reverse rate is thermodynamic for these
         nu = (gas.product_stoich_coeffs - gas.reactant_stoich_coeffs)
         self.nu_a = nu[np.ix_(active, reactions)]  # (na, nr_in)
+        self.nu_rx = nu[:, reactions]  # (ns, nr_in)
+        # sparse products: cheaper, and free of BLAS threading (which, on a loaded machine, makes a
+        # 53 x 325 x 53 product a thousand times slower)
+        self.nu_sp = sparse.csr_matrix(self.nu_a)
         self.nu_sum = nu[:, reactions].sum(axis=0)  # (nr_in,)
         self.orders = gas.reactant_stoich_coeffs[np.ix_(active, reactions)].T  # (nr_in, na)
         self.order_sum = gas.reactant_stoich_coeffs[:, reactions].sum(axis=0)
@@ -298,6 +306,10 @@ class _System:
         self.pressure = pressure  # Pa (constant-pressure, isothermal)
         self.temperature = temperature  # K, Newton guess (isothermal: fixed)
         self.mob = mobility
+        part = (gas.product_stoich_coeffs + gas.reactant_stoich_coeffs) > 0
+        self.part_a = part[np.ix_(active, reactions)].astype(float)  # (na, nr_in)
+        self.eps = trace_level * self.n_ref  # mol
+        self._trace_factor = 1.0
         self.n_rhs = 0
         self.n_jac = 0
         self._set(n_start, newton=False)
@@ -363,6 +375,8 @@ class _System:
         """Amounts (mol), T (K), V (m3) of z, with the gas set there."""
         n = self.amounts(z)
         T = self._set(n)
+        if self.mob.kind != "log-mean":
+            self._trace(n)
         V = self.volume if self.reactor == "isolated" else self._mass_n / self.gas.density
         return n, T, V
 
@@ -382,7 +396,19 @@ class _System:
             q = np.where(self.reversible_in, self.gas.net_rates_of_progress[self.rx] * KMOL, rf - rr)
             return q, rr, None
         m = mob.m if mob.kind == "constant" else mob.m * np.exp(-mob.b * (1.0 / T - 1.0 / mob.t_ref))
-        return m * x, None, m
+        return m * self._trace_factor * x, None, m * self._trace_factor
+
+    def _trace(self, n):
+        """g_j = prod_k N_k/(N_k + eps) over the active species of reaction j (1), and eps/(N+eps).
+
+        A constant mobility would relax a species of amount N at a rate ~ m/N, without bound as
+        N -> 0; below the trace level eps the mobility is scaled like mass action instead. It
+        changes nothing where every species of the reaction is well above eps.
+        """
+        na = n[self.active]
+        ratio = self.eps / na
+        self._trace_factor = np.exp(-(self.part_a.T @ np.log1p(ratio))) if self.eps > 0 else 1.0
+        self._trace_slope = ratio / (1.0 + ratio) if self.eps > 0 else np.zeros(na.size)
 
     def rhs(self, t, z):
         self.n_rhs += 1
@@ -412,7 +438,7 @@ class _System:
 
     def _dx(self, n, T, dT, dlnv):
         """d x_j / d z_i, (nr_in, na)."""
-        du = (self.gas.standard_int_energies_RT @ (self.gas.product_stoich_coeffs - self.gas.reactant_stoich_coeffs))[self.rx]
+        du = self.gas.standard_int_energies_RT @ self.nu_rx  # Delta u_j / (R T)
         return -self.nu_a.T + np.outer(self.nu_sum, dlnv) + np.outer(du / T, dT)
 
     def jac(self, t, z):
@@ -435,13 +461,13 @@ class _System:
             dlnr = self.orders - np.outer(self.order_sum, dlnv) + np.outer(dlnk, dT)
             dq = q[:, None] * dlnr + rr[:, None] * dx
         else:
-            dq = m[:, None] * dx
+            dq = m[:, None] * (dx + x[:, None] * self.part_a.T * self._trace_slope[None, :])
             if self.mob.kind == "arrhenius":
                 dq += np.outer(x * m * self.mob.b / T**2, dT)
         na = n[self.active]
         flux = self.nu_a @ q
         f = V * flux / na
-        J = (V * (self.nu_a @ dq) + np.outer(flux, V * dlnv)) / na[:, None]
+        J = (V * (self.nu_sp @ dq) + np.outer(flux, V * dlnv)) / na[:, None]
         J[np.diag_indices_from(J)] -= f
         return J
 
@@ -508,6 +534,7 @@ class _Path:
     entropy_decrease: float
     steps: int
     wall: float
+    trace_level: float = float("nan")
 
 
 def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements, settings, t_scale):
@@ -552,7 +579,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
             msg = solver.step()
             steps += 1
             if solver.status == "failed":
-                status, reason = "failed", f"BDF: {msg}"
+                status, reason = "failed", f"BDF at t = {solver.t:.4g} s, progress {lams[-1]:.6g}: {msg}"
                 break
             n, T, raw = project_state(solver.y)
             phi = system.potential()
@@ -783,7 +810,8 @@ def _compare(gas, info, rel, sample_index, settings):
     q_all = st.net_rate.copy()
     rf_all, rr_all = st.forward_rate, st.reverse_rate
     present = rel.mass_fractions > 0
-    valid = ((~present).astype(float) @ participates.astype(float) == 0) & included[None, :]
+    valid = (sparse.csr_matrix((~present).astype(float)) @ sparse.csc_matrix(participates.astype(float))).toarray() == 0
+    valid &= included[None, :]
     w = path_weights(settings.weight, rel.time, rel.potential, lam)
     if not (w > 0).any():
         raise _Degenerate(f"no {settings.weight} weight on the observed path")
@@ -863,7 +891,7 @@ def _compare(gas, info, rel, sample_index, settings):
             mob = _Mobility("constant", np.nan_to_num(np.clip(mobility[metric][rx], 0.0, None)))
         try:
             system = _System(gas, rel.reactor, rel.mass, n_start, active, rx, reversible_in, volume, pressure,
-                             float(rel.temperature[k_start]), mob)
+                             float(rel.temperature[k_start]), mob, settings.trace_level)
             systems[metric] = system
             z0 = system.z_of(n_start)
             system.state(z0)
@@ -873,8 +901,19 @@ def _compare(gas, info, rel, sample_index, settings):
             if metric != "log-mean" and np.any(mob.m < 0):
                 raise ValueError("negative fitted mobility (irreversible or inconsistent reactions): "
                                  "the metric is not positive definite")
-            paths[metric] = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings,
-                                      t_scale)
+            path = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings, t_scale)
+            level = settings.trace_level
+            while path.status == "failed" and metric != "log-mean" and 0 < level < 1e-8:
+                # a failed constant-metric path is retried with a higher trace level
+                level *= 1e3
+                system.eps = level * system.n_ref
+                retry = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings, t_scale)
+                retry.wall += path.wall
+                retry.reason = (f"retried with trace level {level:.0e} after: {path.reason}"
+                                + (f"; {retry.reason}" if retry.reason else ""))
+                path = retry
+            path.trace_level = level if metric != "log-mean" else float("nan")
+            paths[metric] = path
         except Exception as err:
             paths[metric] = _Path("failed", f"{type(err).__name__}: {str(err).splitlines()[0][:300] if str(err) else ''}",
                                   np.full(grid.size, np.nan), np.full(grid.size, np.nan),
@@ -953,7 +992,7 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
     sea_t, sea_T, sea_x = full(nmet, ng), full(nmet, ng), full(nmet, ng, ns)
     angle, dT = full(nmet, ng), full(nmet, ng)
     largest, ratio, ep = full(nmet), full(nmet, levels.size), full(nmet)
-    slow, wall, steps = full(nmet), full(nmet), full(nmet)
+    slow, wall, steps, trace = full(nmet), full(nmet), full(nmet), full(nmet)
     e_err, e_raw, u_err, s_drop = full(nmet), full(nmet), full(nmet), full(nmet)
     m_ref, b_arr = full(nr), full(nr)
     obs_t, obs_T = full(ng), full(ng)
@@ -976,7 +1015,7 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
             slow[i] = res["slow_diff"][metric]
             p = res["paths"][metric]
             status[i], reasons[i] = p.status, p.reason
-            wall[i], steps[i] = p.wall, p.steps
+            wall[i], steps[i], trace[i] = p.wall, p.steps, p.trace_level
             e_err[i], e_raw[i], u_err[i], s_drop[i] = (p.element_error, p.element_drift_unprojected,
                                                        p.energy_error, p.entropy_decrease)
             sea_t[i] = res["t_start"] + p.time  # SEA clock starts at the observed start sample
@@ -1041,6 +1080,8 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
             "sea_reason": var(("metric",), reasons.astype(str), "1", "why a steepest-ascent path is missing or short"),
             "sea_wall_time": var(("metric",), wall, "s", "wall time of the steepest-ascent path"),
             "sea_steps": var(("metric",), steps, "1", "solver steps of the steepest-ascent path"),
+            "sea_trace_level": var(("metric",), trace, "1",
+                                   "amount over total below which the constant mobility was scaled like mass action"),
             "sea_element_error": var(("metric",), e_err, "1", "largest relative element imbalance on the path"),
             "sea_element_drift_unprojected": var(("metric",), e_raw, "1",
                                                  "largest relative element imbalance before projection"),
