@@ -60,3 +60,18 @@ def workdir(tmp_path):
         src = REPO / name
         (shutil.copytree if src.is_dir() else shutil.copy)(src, tmp_path / name)
     return tmp_path
+
+
+# How many configs, mechanisms and conditions the reliability tests tried: CI prints the counts.
+TRIED: dict[str, int] = {}
+
+
+def count_tried(kind: str, n: int = 1) -> None:
+    TRIED[kind] = TRIED.get(kind, 0) + n
+
+
+def pytest_terminal_summary(terminalreporter):
+    if TRIED:
+        terminalreporter.section("reliability: inputs tried")
+        for kind, n in sorted(TRIED.items()):
+            terminalreporter.write_line(f"{n:7d}  {kind}")

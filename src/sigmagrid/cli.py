@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from pathlib import Path
 
@@ -42,6 +43,10 @@ def cmd_cases(args) -> int:
     batches = grid.batches(config["batch"]["cases_per_job"])
     print(f"# {len(grid.cases)} cases in {len(batches)} batches of up to {config['batch']['cases_per_job']}; "
           f"mechanism {grid.mechanism_path.name} (sha256 {grid.mechanism_sha256[:12]})")
+    from . import mechanism
+
+    for note in mechanism.describe(mechanism.load(grid.mechanism_path)).notes:
+        print(f"note: {note}", file=sys.stderr)
     print(f"{'case_id':16}  {'reactor':17}  {'mixture':10}  {'phi [1]':>8}  {'T0 [K]':>8}  {'P0 [Pa]':>10}  label")
     for c in sorted(grid.cases, key=lambda c: c.label):
         print(f"{c.case_id:16}  {c.reactor:17}  {c.composition_name:10}  {c.equivalence_ratio:8.3g}  "
@@ -183,6 +188,9 @@ def main(argv: list[str] | None = None) -> int:
     except InputError as err:
         print(f"sigmagrid: error: {err.field}: {err.message}", file=sys.stderr)
         return EXIT_INPUT
+    except BrokenPipeError:  # output piped into head or less that closed early
+        sys.stdout = open(os.devnull, "w")
+        return 0
     except KeyboardInterrupt:
         print("sigmagrid: interrupted; finished case files are kept, rerun to continue", file=sys.stderr)
         return 130

@@ -30,6 +30,12 @@ def describe_case(path, top: int = 8) -> str:
              f"  entropy produced  {_fmt(float(ds['entropy_produced_total']), 'J/K')}",
              f"  irreversible      {a.get('n_irreversible_reactions', '?')} reaction(s); negative share "
              f"{_fmt(float(ds['negative_entropy_share']), '', '.2e')}"]
+    if a.get("missing_values"):
+        lines.append("  missing values (stored as NaN):")
+        lines += [f"    {item}" for item in a["missing_values"].split("; ")]
+    if a.get("audit_notes"):
+        lines.append("  audit notes:")
+        lines += [f"    {item}" for item in a["audit_notes"].split("; ")]
     if a.get("negative_duplicate_members"):
         lines.append(f"  duplicate members with negative entropy production: {a['negative_duplicate_members']}")
     produced = ds["entropy_produced"].values

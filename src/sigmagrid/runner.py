@@ -6,7 +6,10 @@ the other cases of its batch.
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
+import fcntl
+import os
 import sys
 import time
 import traceback
@@ -19,6 +22,7 @@ import numpy as np
 import xarray as xr
 
 from . import __version__, config as config_mod, diagnostics, grid as grid_mod, mechanism, safety, store
+from .errors import InputError
 from .reactors import Relaxation, RelaxSettings, relax
 
 
@@ -69,6 +73,7 @@ def run_case(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInf
         relaxation = relax(gas, info, case.reactor, case.temperature, case.pressure, mole_fractions, settings.relax)
     except Exception as err:  # noqa: BLE001 - recorded, not hidden
         relaxation = _failed_relaxation(gas, case, f"{type(err).__name__}: {err}", settings.relax)
+    relaxation.notes.extend(case_notes(relaxation, gas))
     ignition_index = ()
     if np.isfinite(relaxation.ignition_delay):
         ignition_index = (int(np.searchsorted(relaxation.time, relaxation.ignition_delay)),)
@@ -85,6 +90,29 @@ def run_case(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInf
     )
 
 
+#: |relative drift| of the held energy above which a case carries a note (round-off is ~1e-12).
+ENERGY_DRIFT_NOTE = 1e-6
+
+
+def case_notes(relaxation: Relaxation, gas: ct.Solution) -> list[str]:
+    """Warnings about one case: energy not held, temperatures outside the thermo data's range."""
+    notes = []
+    drift = relaxation.energy_drift
+    if np.isfinite(drift) and abs(drift) > ENERGY_DRIFT_NOTE:
+        notes.append(f"held energy drifted by {drift:.2g} (relative): check the thermo data near the "
+                     "temperatures crossed (NASA7 midpoints)")
+    if relaxation.temperature.size:
+        low = max(sp.thermo.min_temp for sp in gas.species())
+        high = min(sp.thermo.max_temp for sp in gas.species())
+        t_min, t_max = float(np.nanmin(relaxation.temperature)), float(np.nanmax(relaxation.temperature))
+        if relaxation.equilibrium is not None:
+            t_max = max(t_max, relaxation.equilibrium.temperature)
+        if t_max > high or t_min < low:
+            notes.append(f"temperatures {t_min:.0f}-{t_max:.0f} K leave the range where the thermo data of "
+                         f"every species hold ({low:g}-{high:g} K): values there are extrapolated")
+    return notes
+
+
 def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
               report: Callable[[str], None] = print, skip_existing: bool = False) -> list[Path]:
     """Run cases one after the other, writing ``<out_dir>/<case_id>.nc`` atomically for each."""
@@ -95,9 +123,12 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
     info = mechanism.describe(gas)
     settings = RunSettings.from_config(config)
     meta = provenance(path, sha, config_mod.config_hash(config), config.get("study", ""))
+    for note in info.notes:
+        report(f"note: {note}")
     written = []
     for n, case in enumerate(cases, 1):
         target = out_dir / f"{case.case_id}.nc"
+        store.remove_stale_temporaries(target)  # a killed earlier run may have left one
         if skip_existing and target.is_file():
             written.append(target)
             continue
@@ -150,8 +181,41 @@ def write_summary(case_files: list[str | Path], summary_path: str | Path, table_
 
 
 def run_grid(config: dict, results: str | Path = "results", report: Callable[[str], None] = print) -> xr.Dataset:
-    """The whole job in one process: every case, then the summary. Reruns skip finished case files."""
+    """The whole job in one process: every case, then the summary. Reruns skip finished case files.
+
+    The results folder is locked for the run; a second run on the same folder is refused.
+    """
     results = Path(results)
     grid = grid_mod.expand(config)
-    files = run_cases(config, list(grid.cases), results / "cases", report=report, skip_existing=True)
-    return write_summary(files, results / "summary.nc", results / "cases.csv")
+    with folder_lock(results):
+        files = run_cases(config, list(grid.cases), results / "cases", report=report, skip_existing=True)
+        return write_summary(files, results / "summary.nc", results / "cases.csv")
+
+
+LOCK_NAME = ".sigmagrid-run.lock"
+
+
+@contextlib.contextmanager
+def folder_lock(folder: Path):
+    """An exclusive ``flock`` on ``folder/.sigmagrid-run.lock`` for the duration of a run.
+
+    The kernel drops the lock when the process ends, however it ends: a killed run leaves no
+    stale lock behind. Raises InputError naming ``--results`` if another run holds it.
+    """
+    folder.mkdir(parents=True, exist_ok=True)
+    handle = open(folder / LOCK_NAME, "a+")
+    try:
+        try:
+            fcntl.flock(handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            handle.seek(0)
+            holder = handle.read().strip() or "another process"
+            raise InputError("--results", f"'{folder}' is in use by another sigmagrid run ({holder}); wait for "
+                             "it to finish or give another --results folder") from None
+        handle.seek(0)
+        handle.truncate()
+        handle.write(f"pid {os.getpid()}")
+        handle.flush()
+        yield
+    finally:
+        handle.close()

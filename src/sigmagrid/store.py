@@ -7,6 +7,7 @@ how the cases were scheduled.
 
 from __future__ import annotations
 
+import glob
 import os
 import tempfile
 from pathlib import Path
@@ -15,6 +16,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from . import missing
 from .units import UNITS
 
 CONVENTIONS = "CF-1.10"
@@ -36,6 +38,20 @@ SCALARS = {
     "solver_steps": ("1", "number of solver steps"),
     "wall_time": ("s", "wall-clock time of the relaxation"),
 }
+
+
+#: Significant decimal digits kept in the stored path samples (lossy quantization, then lossless
+#: compression). Integrals and balances use float64 at full solver resolution and are not affected.
+SIGNIFICANT_DIGITS = {"affinity": 5, "net_rate": 5, "mole_fraction": 5,
+                      "forward_rate": 4, "reverse_rate": 4, "entropy_production": 4}
+
+
+def disequilibrium(ds: xr.Dataset) -> xr.DataArray:
+    """x_j = A_j / (R T) of a case file, dimensionless (derived, so it is not stored)."""
+    from .units import GAS_CONSTANT
+
+    x = ds["affinity"].astype(float) / (GAS_CONSTANT * ds["temperature"])
+    return x.assign_attrs(units="1", long_name="degree of disequilibrium x_j = A_j / (R T)")
 
 
 def choose_samples(time: np.ndarray, progress: np.ndarray, temperature: np.ndarray, budget: int,
@@ -93,13 +109,16 @@ def write_atomic(ds: xr.Dataset, path: str | Path, compress: bool = True) -> Pat
     for name, var in ds.variables.items():
         if var.dtype.kind in "fiu" and var.ndim >= 1 and compress:
             enc = {"zlib": True, "complevel": 4, "shuffle": True}
+            if name in SIGNIFICANT_DIGITS and var.dtype == np.float32:
+                # quantize the mantissa before compression: float32 noise digits do not compress
+                enc.update(significant_digits=SIGNIFICANT_DIGITS[name], quantize_mode="GranularBitRound")
             if var.ndim >= 1 and var.size > 0:
                 enc["chunksizes"] = tuple(min(s, 512) if i == 0 else s for i, s in enumerate(var.shape))
             encoding[name] = enc
         if var.dtype.kind == "f":
             # CF: coordinate variables carry no fill value; data variables mark missing as NaN
             encoding.setdefault(name, {})["_FillValue"] = None if name in ds.dims else np.nan
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp-nc", dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=_temp_prefix(path), suffix=".tmp-nc", dir=path.parent)
     os.close(fd)
     try:
         ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
@@ -111,16 +130,52 @@ def write_atomic(ds: xr.Dataset, path: str | Path, compress: bool = True) -> Pat
     return path
 
 
+def _temp_prefix(path: Path) -> str:
+    # the writer's pid in the name tells a leftover of a killed run from a write in progress
+    return f".{path.name}.{os.getpid()}."
+
+
+def remove_stale_temporaries(path: str | Path) -> list[Path]:
+    """Delete temporary files of ``path`` left by writers that no longer run (killed, rebooted).
+
+    Returns the files removed. Temporaries of a live process (a concurrent write) are kept.
+    """
+    path = Path(path)
+    removed = []
+    for tmp in path.parent.glob(f".{glob.escape(path.name)}.*.tmp*"):
+        pid_text = tmp.name[len(path.name) + 2:].split(".", 1)[0]
+        if pid_text.isdigit() and _alive(int(pid_text)):
+            continue
+        tmp.unlink(missing_ok=True)
+        removed.append(tmp)
+    return removed
+
+
+def _alive(pid: int) -> bool:
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # someone else's live process
+        return True
+    return True
+
+
 def write_text_atomic(text: str, path: str | Path) -> Path:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=_temp_prefix(path), suffix=".tmp", dir=path.parent)
     with os.fdopen(fd, "w") as handle:
         handle.write(text)
     os.chmod(tmp, 0o644)
     os.replace(tmp, path)
     return path
 
+
+#: Case-file attributes repeated in every row of cases.csv, so the table alone says how it was made.
+PROVENANCE_COLUMNS = ("mechanism", "mechanism_sha256", "config_sha256", "sigmagrid_version", "cantera_version")
 
 CASE_COORDS = ("case_id", "label", "reactor", "composition_name", "equivalence_ratio",
                "initial_temperature", "initial_pressure", "status")
@@ -156,7 +211,9 @@ def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
                "initial_temperature": float(ds.attrs["initial_temperature"]),
                "initial_pressure": float(ds.attrs["initial_pressure"]),
                "status": ds.attrs["status"], "reason": ds.attrs.get("reason", ""),
-               "flammability_at_ambient": ds.attrs.get("flammability_at_ambient", "unknown")}
+               "missing": ds.attrs.get("missing_values", ""), "audit_notes": ds.attrs.get("audit_notes", ""),
+               "flammability_at_ambient": ds.attrs.get("flammability_at_ambient", "unknown"),
+               **{k: ds.attrs.get(k, "") for k in PROVENANCE_COLUMNS}}
         for name in SCALARS:
             row[name] = float(ds[name]) if name in ds else np.nan
         for level in (50, 90, 99):
@@ -173,7 +230,8 @@ def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
     with np.errstate(invalid="ignore", divide="ignore"):
         share = np.where(totals != 0, matrix / totals, np.nan)
     table = table.fillna({"label": table["case_id"], "reactor": "", "composition_name": "", "composition": "",
-                          "reason": "", "flammability_at_ambient": "unknown"})
+                          "reason": "", "missing": "", "audit_notes": "", "flammability_at_ambient": "unknown",
+                          **{k: "" for k in PROVENANCE_COLUMNS}})
     coords = {
         "case": ("case", table["case_id"].to_numpy(str), {"long_name": "case id"}),
         "reaction": ("reaction", np.array(reactions, dtype=str), {"long_name": "reaction equation"}),
@@ -193,6 +251,10 @@ def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
         "entropy_share": (("case", "reaction"), share,
                           _attrs("1", "integrated share of each reaction in the entropy produced (sums to 1)")),
         "reason": ("case", table["reason"].to_numpy(str), {"long_name": "why a case did not relax"}),
+        "missing": ("case", table["missing"].to_numpy(str),
+                    {"long_name": "which values of the case are missing (NaN) and why"}),
+        "audit_notes": ("case", table["audit_notes"].to_numpy(str),
+                        {"long_name": "warnings about the mechanism and the case (irreversible reactions, thermo gaps)"}),
     }
     for name, (units, long_name) in SCALARS.items():
         data[name] = ("case", table[name].to_numpy(float), _attrs(units, long_name))
@@ -253,8 +315,6 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
         "mole_fraction": (("time", "species"), x.astype(f32), _attrs("1", "mole fraction")),
         "affinity": (("time", "reaction"), reaction_state.affinity.astype(f32),
                      _attrs("J mol-1", "affinity A_j = -sum_k nu_kj mu_k")),
-        "disequilibrium": (("time", "reaction"), reaction_state.disequilibrium.astype(f32),
-                           _attrs("1", "degree of disequilibrium x_j = A_j / (R T)")),
         "forward_rate": (("time", "reaction"), reaction_state.forward_rate.astype(f32),
                          _attrs("mol m-3 s-1", "forward rate of progress")),
         "reverse_rate": (("time", "reaction"), reaction_state.reverse_rate.astype(f32),
@@ -281,8 +341,17 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
                                       _attrs("1", "mole fraction at equilibrium")),
         "time_to_progress": ("progress_level", times_to, _attrs("s", "first time the progress reaches the level")),
     }
+    why = missing.reasons(r, scalars, dict(zip(progress_levels.tolist(), times_to.tolist())))
     for name, (units, long_name) in SCALARS.items():
-        data[name] = ((), float(scalars[name]), _attrs(units, long_name))
+        extra = {"comment": f"missing: {why[name]}"} if name in why else {}
+        data[name] = ((), float(scalars[name]), _attrs(units, long_name, **extra))
+    times_why = [f"{int(round(100 * lv))} %: {why[k]}" for lv, k in missing.PROGRESS_TIMES.items() if k in why]
+    if times_why:
+        data["time_to_progress"][2]["comment"] = "missing: " + "; ".join(times_why)
+    if not np.isfinite(data["progress"][1]).all():
+        data["progress"][2]["comment"] = ("missing: progress is undefined when the initial state is at "
+                                          "equilibrium" if r.at_equilibrium_start else "missing: case failed")
+    notes = [*getattr(info, "notes", ()), *getattr(r, "notes", ())]
     coords = {
         # Elapsed time in plain seconds: a CF reference date ("s since ...") would make every
         # netCDF reader decode it to calendar dates at ns resolution and merge the sub-ns samples of
@@ -308,6 +377,7 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
         "n_irreversible_reactions": int(audit.n_irreversible) if audit else -1,
         "negative_duplicate_members": ", ".join(equations[j] for j in audit.negative_members) if audit else "",
         "flammability_at_ambient": flammability.verdict, "flammability_note": flammability.reason,
+        "missing_values": missing.as_text(why), "audit_notes": "; ".join(notes),
         **{k: v for k, v in provenance.items() if k != "created"},
     }
     return xr.Dataset(data, coords=coords, attrs=attrs)

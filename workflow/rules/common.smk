@@ -1,5 +1,6 @@
 # Validate the config and expand the grid before any rule runs; bad input stops here with one line.
 import json
+import os
 import sys
 
 from sigmagrid import config as sg_config
@@ -8,7 +9,7 @@ from sigmagrid.errors import InputError
 
 try:
     CONFIG = sg_config.validate(dict(config))
-    GRID = sg_grid.expand(CONFIG)
+    GRID = sg_grid.expand(CONFIG, project_root=os.getcwd())
 except InputError as err:
     sys.stderr.write(f"sigmagrid: error: {err.field}: {err.message}\n")
     sys.exit(2)
