@@ -1,0 +1,287 @@
+"""Steepest-entropy-ascent comparison (issue 3), checked against sources outside the project.
+
+Sources named beside each check:
+- Mielke, A. (2011), Nonlinearity 24, 1329: mass action with detailed balance is the gradient flow
+  of the entropy under the log-mean mobility, so the log-mean SEA path is the kinetics itself.
+- Onsager, L. (1931), Phys. Rev. 37, 405; de Groot and Mazur (1962), Non-Equilibrium
+  Thermodynamics, ch. VI: near equilibrium the kinetics is linear in the affinities with the
+  equilibrium one-way rates as coefficients, so its relaxation rates are those of the onsager
+  metric. Reference: Cantera's own reactor Jacobian.
+- de Donder's inequality and the affinity-rate relation q = r+ (1 - exp(-x)) for reverse rates from
+  the equilibrium constant (de Donder 1927), evaluated by Cantera.
+- Closed forms for a single isomerisation A <=> B (first-order kinetics; a constant mobility gives a
+  one-dimensional quadrature).
+- Element and energy conservation, checked with Cantera's own mixture properties.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import cantera as ct
+from scipy.integrate import quad
+
+from sigmagrid import mechanism, reactors, sea
+from sigmagrid.diagnostics import evaluate
+from sigmagrid.units import GAS_CONSTANT
+
+AIR = "O2:1, N2:3.76"
+FAST = reactors.RelaxSettings(rtol=1e-10, atol=1e-20, max_time=1.0)
+
+
+def _samples(rel, n=40):
+    return np.unique(np.linspace(0, rel.time.size - 1, n).astype(int))
+
+
+@pytest.fixture(scope="module")
+def h2o2_gas():
+    gas = mechanism.load(mechanism.resolve("h2o2.yaml"))
+    return gas, mechanism.describe(gas)
+
+
+@pytest.fixture(scope="module", params=["isolated", "constant-pressure"])
+def h2_case(request, h2o2_gas):
+    """Hydrogen-air (an invented burner pre-mix) relaxed and compared under every metric."""
+    gas, info = h2o2_gas
+    rel = reactors.relax(gas, info, request.param, 1100.0, 2 * ct.one_atm, "H2:2, O2:1, N2:3.76", FAST)
+    assert rel.status == "relaxed", rel.reason
+    idx = _samples(rel)
+    ds = sea.compare(gas, info, rel, idx)
+    return gas, info, rel, idx, ds
+
+
+def test_layout_and_units(h2_case):
+    gas, _, rel, idx, ds = h2_case
+    np.testing.assert_array_equal(ds.time.values, rel.time[idx])
+    assert list(ds.reaction.values) == gas.reaction_equations()
+    assert list(ds.species.values) == gas.species_names
+    assert list(ds.metric.values) == list(sea.METRICS)
+    expected = {"mobility": "mol m-3 s-1", "fit_quality": "1", "alignment": "1", "sea_time": "s",
+                "sea_temperature": "K", "sea_mole_fraction": "1", "observed_time": "s", "path_angle": "rad",
+                "relaxation_rates_sea": "s-1", "relaxation_rates_kinetics": "s-1"}
+    for name, units in expected.items():
+        assert ds[name].attrs["units"] == units and ds[name].attrs["long_name"]
+    for name in ds.data_vars:
+        assert "units" in ds[name].attrs, name
+    assert (ds.sea_status.values == "ok").all(), ds.sea_reason.values
+
+
+def test_log_mean_path_is_the_kinetics(h2_case):
+    """Mielke (2011): q = Lambda x is mass action, so the log-mean SEA path is the observed path."""
+    ds = h2_case[4].sel(metric="log-mean")
+    assert float(ds.largest_path_angle) <= 1e-3
+    assert np.nanmax(np.abs(ds.temperature_difference.values)) <= 0.5
+    np.testing.assert_allclose(ds.time_ratio.values, 1.0, rtol=1e-3)
+    # and the same times at equal progress, against the observed clock
+    ok = np.isfinite(ds.sea_time.values) & np.isfinite(ds.observed_time.values)
+    assert ok.sum() > 50
+    t_obs = ds.observed_time.values[ok]
+    np.testing.assert_allclose(ds.sea_time.values[ok], t_obs, rtol=1e-3, atol=1e-3 * (t_obs[-1] - t_obs[0]))
+
+
+def test_log_mean_alignment_is_one(h2_case):
+    """Mielke (2011): cos theta = 1 under the log-mean metric at every stored sample."""
+    a = h2_case[4].alignment.sel(metric="log-mean").values
+    assert np.all(np.abs(a - 1.0) <= 1e-9)
+    assert float(h2_case[4].fit_quality.sel(metric="log-mean")) == pytest.approx(1.0, abs=1e-9)
+
+
+def test_alignment_bounds_and_entropy_rises(h2_case):
+    """Cauchy-Schwarz bounds cos theta to [-1, 1]; any SEA path raises the entropy (dS/dt = V R x.M.x)."""
+    ds = h2_case[4]
+    a = ds.alignment.values
+    assert np.all((a >= -1.0) & (a <= 1.0))
+    assert np.all(ds.sea_entropy_decrease.values <= 1e-12)
+    ratio = ds.entropy_production_ratio.values
+    assert np.all((ratio >= 0) & (ratio <= 1 + 1e-12))
+    # the non-log-mean metrics really differ from mass action on a hydrogen flame
+    assert float(ds.largest_path_angle.sel(metric="fitted-scalar")) > 1e-2
+
+
+def test_diagonal_fit_is_nonnegative(h2_case):
+    """de Donder: x_j q_j >= 0 for a reversible reaction, so m_j = sum w x q / sum w x^2 >= 0."""
+    gas, info, rel, _, ds = h2_case
+    m = ds.mobility.sel(metric="fitted-diagonal").values
+    rev = info.reversible & np.isfinite(m)
+    assert rev.sum() >= 20
+    assert np.all(m[rev] >= 0)
+    # the closed form, recomputed here independently from Cantera's rates on the observed path
+    st = evaluate(gas, rel.temperature, rel.density, rel.mass_fractions)
+    w = sea.path_weights("entropy", rel.time, rel.potential, rel.progress)
+    j = int(np.nanargmax(m))
+    r = gas.reaction(j)
+    species = [gas.species_index(k) for k in {**r.reactants, **r.products}]
+    present = (rel.mass_fractions[:, species] > 0).all(axis=1)  # where its affinity is finite
+    x, q = st.disequilibrium[present, j], st.net_rate[present, j]
+    m_ref = (w[present] * x * q).sum() / (w[present] * x * x).sum()
+    assert m[j] == pytest.approx(m_ref, rel=1e-6)
+
+
+def test_conservation_on_sea_paths(h2_case):
+    """Elements to round-off and U (isolated) or H (constant pressure) to solver tolerance.
+
+    Checked with Cantera's own mixture properties of the stored states, not the module's sums.
+    """
+    gas, _, rel, _, ds = h2_case
+    assert np.all(ds.sea_element_error.values <= 1e-10)
+    assert np.all(ds.sea_energy_error.values <= 1e-8)
+    gas.TDY = rel.temperature[0], rel.density[0], rel.mass_fractions[0]
+    e0 = gas.int_energy_mass if rel.reactor == "isolated" else gas.enthalpy_mass
+    atoms = np.array([[gas.n_atoms(k, e) for k in range(gas.n_species)] for e in range(gas.n_elements)])
+    ratio0 = atoms @ gas.X
+    ratio0 = ratio0 / ratio0.sum()
+    for metric in ds.metric.values:
+        d = ds.sel(metric=metric)
+        ok = np.flatnonzero(np.isfinite(d.sea_temperature.values))
+        for i in ok[:: max(ok.size // 8, 1)]:
+            X = d.sea_mole_fraction.values[i]
+            if rel.reactor == "isolated":
+                gas.TDX = d.sea_temperature.values[i], rel.density[0], X
+                e = gas.int_energy_mass
+            else:
+                gas.TPX = d.sea_temperature.values[i], rel.pressure[0], X
+                e = gas.enthalpy_mass
+            # the energy drift of the observed path up to the SEA start counts here too
+            assert abs(e - e0) <= 1e-8 * abs(e0) + abs(rel.energy_drift * e0), metric
+            r = atoms @ X
+            np.testing.assert_allclose(r / r.sum(), ratio0, rtol=1e-10, atol=1e-14)
+
+
+def test_onsager_spectrum_matches_cantera_jacobian(h2_case):
+    """Onsager (1931): the slowest five relaxation rates equal those of Cantera's reactor Jacobian."""
+    ds = h2_case[4]
+    sea_rates = ds.relaxation_rates_sea.values
+    kin = ds.relaxation_rates_kinetics.values
+    n = np.isfinite(kin).sum()
+    assert n >= 5  # 8 reactive species, 2 elements: 6 modes
+    np.testing.assert_allclose(sea_rates[:5], kin[:5], rtol=1e-2)
+    assert float(ds.slow_mode_difference.sel(metric="onsager")) <= 1e-2
+    # a fitted isotropic metric does not reproduce the spectrum: the check can fail
+    assert float(ds.slow_mode_difference.sel(metric="fitted-scalar")) > 1e-2
+
+
+def test_linear_regime_near_equilibrium(h2o2_gas):
+    """de Donder / Onsager: q_j / (r+_j x_j) -> 1 as x_j -> 0, with error -x_j/2 (q = r+(1 - e^-x))."""
+    gas, _ = h2o2_gas
+    gas.TPX = 2400.0, ct.one_atm, "H2:2, O2:1, N2:3.76"
+    gas.equilibrate("TP")
+    X_eq = gas.X.copy()
+    for eps in (1e-3, 1e-5):
+        # a small nudge off equilibrium (it need not conserve elements for this identity)
+        X = X_eq * (1 + eps * np.cos(np.arange(gas.n_species)))
+        gas.TPX = 2400.0, ct.one_atm, X
+        st = evaluate(gas, [gas.T], [gas.density], [gas.Y])
+        x, q, rf = st.disequilibrium[0], st.net_rate[0], st.forward_rate[0]
+        use = (np.abs(x) > 1e-12) & (rf > 0)
+        ratio = q[use] / (rf[use] * x[use])
+        assert np.all(np.abs(x[use]) < 50 * eps)
+        # leading term -x/2 to 2 % of |x| (Cantera's one-way rates carry a few 1e-8 of rounding)
+        np.testing.assert_allclose(ratio - 1.0, -x[use] / 2.0, atol=0.02 * float(np.max(np.abs(x[use]))))
+        assert np.max(np.abs(ratio - 1.0)) < np.max(np.abs(x[use]))
+        # the log-mean mobility tends to r+ at the same rate
+        lm = sea.log_mean_mobility(st.forward_rate[0], st.reverse_rate[0], x)
+        np.testing.assert_allclose(lm[use] / rf[use], 1.0, atol=np.max(np.abs(x[use])))
+
+
+ISOMER_YAML = """
+phases:
+- name: gas
+  thermo: ideal-gas
+  elements: [Ar]
+  species: [A, B]
+  kinetics: gas
+  reactions: all
+  state: {T: 900.0, P: 1 atm}
+species:
+- name: A
+  composition: {Ar: 1}
+  thermo: {model: constant-cp, T0: 298.15, h0: 0.0, s0: 100.0 J/mol/K, cp0: 30.0 J/mol/K}
+- name: B
+  composition: {Ar: 1}
+  thermo: {model: constant-cp, T0: 298.15, h0: 0.0, s0: 105.763 J/mol/K, cp0: 30.0 J/mol/K}
+reactions:
+- equation: A <=> B
+  rate-constant: {A: 1000.0, b: 0.0, Ea: 0.0}
+"""
+
+
+@pytest.fixture(scope="module")
+def isomer():
+    """A <=> B with equal enthalpies: T stays fixed in an isolated vessel, K = exp(Delta s0 / R)."""
+    gas = ct.Solution(yaml=ISOMER_YAML)
+    info = mechanism.describe(gas)
+    rel = reactors.relax(gas, info, "isolated", 900.0, ct.one_atm, "A:1", FAST)
+    ds = sea.compare(gas, info, rel, _samples(rel, 20), sea.SeaSettings(metrics=("log-mean", "onsager")))
+    return gas, rel, ds
+
+
+def test_isomerisation_closed_forms(isomer):
+    """First order: y(t) = y_eq + (y0 - y_eq) exp(-(kf + kr) t); constant m: t = int N dy / (V m x(y))."""
+    gas, rel, ds = isomer
+    K = np.exp(5.763 / GAS_CONSTANT)
+    kf, kr = 1000.0, 1000.0 / K
+    y_eq = K / (1 + K)
+    assert rel.equilibrium.mole_fractions[1] == pytest.approx(y_eq, rel=1e-6)
+
+    lm = ds.sel(metric="log-mean")
+    ok = np.flatnonzero(np.isfinite(lm.sea_time.values))
+    y = lm.sea_mole_fraction.values[ok, 1]
+    t = lm.sea_time.values[ok]
+    expected = (t - t[0]) * (kf + kr)
+    measured = np.log((y[0] - y_eq) / (y - y_eq))
+    np.testing.assert_allclose(measured[1:], expected[1:], rtol=2e-4, atol=1e-6)
+
+    on = ds.sel(metric="onsager")
+    m = float(on.mobility.values[0])  # r_eq = kf c_A,eq, mol m-3 s-1
+    gas.TPX = rel.equilibrium.temperature, rel.equilibrium.pressure, rel.equilibrium.mole_fractions
+    assert m == pytest.approx(kf * gas.concentrations[0] * 1e3, rel=1e-9)
+    c_total = float(gas.density_mole) * 1e3  # N / V, mol m-3 (fixed in the isolated vessel)
+    ok = np.flatnonzero(np.isfinite(on.sea_time.values))
+    y = on.sea_mole_fraction.values[ok, 1]
+    t = on.sea_time.values[ok] - on.sea_time.values[ok][0]
+    for i in (len(ok) // 4, len(ok) // 2, 3 * len(ok) // 4):
+        ref, _ = quad(lambda yy: c_total / (m * np.log(K * (1 - yy) / yy)), y[0], y[i])
+        assert t[i] == pytest.approx(ref, rel=1e-4)
+    # at equilibrium both metrics have the single relaxation rate kf + kr
+    assert float(ds.relaxation_rates_sea[0]) == pytest.approx(kf + kr, rel=1e-6)
+    assert float(ds.relaxation_rates_kinetics[0]) == pytest.approx(kf + kr, rel=1e-6)
+
+
+def test_start_at_equilibrium_is_nan_not_crash(h2o2_gas):
+    gas, info = h2o2_gas
+    gas.TPX = 2000.0, ct.one_atm, "H2:2, O2:1, N2:3.76"
+    gas.equilibrate("UV")
+    rel = reactors.relax(gas, info, "isolated", gas.T, gas.P, gas.X, FAST)
+    ds = sea.compare(gas, info, rel, np.arange(rel.time.size))
+    assert (ds.sea_status.values == "skipped").all()
+    assert "equilibrium" in ds.attrs["sea_skipped_reason"]
+    assert np.isnan(ds.sea_time.values).all() and np.isnan(ds.alignment.values).all()
+
+
+def test_failed_relaxation_is_nan_not_crash(h2o2_gas):
+    gas, info = h2o2_gas
+    short = reactors.RelaxSettings(max_time=1e-9)
+    rel = reactors.relax(gas, info, "constant-pressure", 900.0, ct.one_atm, "H2:2, O2:1, N2:3.76", short)
+    ds = sea.compare(gas, info, rel, np.arange(rel.time.size))
+    assert (ds.sea_status.values == "skipped").all()
+    assert ds.attrs["sea_skipped_reason"]
+
+
+@pytest.mark.slow
+def test_gri30_methane_air_20_atm():
+    """The 53-species mechanism Cantera ships, 20 atm (an invented reformer pre-heat study)."""
+    gas = mechanism.load(mechanism.resolve("gri30.yaml"))
+    info = mechanism.describe(gas)
+    rel = reactors.relax(gas, info, "isolated", 1300.0, 20 * ct.one_atm, "CH4:1, O2:2, N2:7.52", FAST)
+    assert rel.status == "relaxed"
+    ds = sea.compare(gas, info, rel, _samples(rel), sea.SeaSettings(metrics=("log-mean", "fitted-diagonal")))
+    lm = ds.sel(metric="log-mean")
+    assert str(lm.sea_status.values) == "ok", str(lm.sea_reason.values)
+    # gri30 has 16 irreversible reactions, here given their thermodynamic reverse: still the kinetics
+    assert float(lm.largest_path_angle) <= 1e-3
+    assert np.nanmax(np.abs(lm.temperature_difference.values)) <= 0.5
+    assert np.all(ds.sea_element_error.values <= 1e-10)
+    assert np.all(ds.sea_energy_error.values <= 1e-8)
+    np.testing.assert_allclose(ds.relaxation_rates_sea.values[:5], ds.relaxation_rates_kinetics.values[:5],
+                               rtol=1e-2)
+    assert str(ds.sea_status.sel(metric="fitted-diagonal").values) == "ok"
