@@ -1,0 +1,54 @@
+"""Subcommands for figures.
+
+    sigmagrid plot FILE.nc [--out DIR] [--top N]      the per-case figures of one case file
+    sigmagrid plot-grid SUMMARY.nc --out DIR [--ranking R.csv] [--reduction C.csv]
+                                                      maps over the grid, ranking and cut charts
+
+Kept apart from ``cli.py``; ``cli.build_parser`` calls :func:`add_commands`.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from .errors import InputError
+
+
+def _say(line: str) -> None:
+    print(line, flush=True)
+
+
+def cmd_plot(args) -> int:
+    from . import figures
+
+    if args.top < 1:
+        raise InputError("--top", f"must be at least 1, got {args.top}")
+    ds = figures.open_case_file(args.file)  # refuses a file that is not a case file, before any output
+    out = Path(args.out) if args.out else Path("figures") / ds.attrs["case_id"]
+    figures.plot_case(args.file, out, top=args.top, log=_say)
+    return 0
+
+
+def cmd_plot_grid(args) -> int:
+    from . import grid_figures
+
+    grid_figures.plot_grid(args.summary, args.out, ranking=args.ranking, reduction=args.reduction,
+                           top=args.top, log=_say)
+    return 0
+
+
+def add_commands(sub) -> None:
+    """Register the figure subcommands on the ``sigmagrid`` parser's subparsers."""
+    p = sub.add_parser("plot", help="per-case figures of one case file (PNG)")
+    p.add_argument("file", help="a case file, results/cases/<case_id>.nc")
+    p.add_argument("--out", default=None, help="folder for the figures (default: figures/<case_id>)")
+    p.add_argument("--top", type=int, default=6, help="how many reactions to show by name (default 6)")
+    p.set_defaults(func=cmd_plot)
+
+    p = sub.add_parser("plot-grid", help="figures over the whole grid from summary.nc (PNG and SVG)")
+    p.add_argument("summary", help="results/summary.nc")
+    p.add_argument("--out", required=True, help="folder for the figures")
+    p.add_argument("--ranking", default=None, help="ranking table (results/ranking.csv), if made")
+    p.add_argument("--reduction", default=None, help="cut table (results/reduction.csv), if made")
+    p.add_argument("--top", type=int, default=12, help="reactions in the ranking chart (default 12)")
+    p.set_defaults(func=cmd_plot_grid)
