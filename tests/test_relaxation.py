@@ -56,13 +56,18 @@ def test_de_donder_inequality_for_reversible_reactions(case_files):
 
 
 def test_rates_and_affinity_consistent_in_file(case_files):
-    # q = r+ - r- and q = r+ (1 - exp(-x)) (mass action with detailed balance), float32 storage.
+    # q = r+ - r- and q = r+ (1 - exp(-x)) (mass action with detailed balance); the samples are
+    # stored to 4-5 significant digits (store.SIGNIFICANT_DIGITS), hence the tolerances.
+    from sigmagrid import store
+
     ds = case_files["isolated_phi1_T1100K_P1.01325bar"]
     rf, rr, q = (ds[v].values.astype(float) for v in ("forward_rate", "reverse_rate", "net_rate"))
-    assert np.allclose(q, rf - rr, rtol=1e-5, atol=1e-6 * np.abs(rf).max())
-    x = np.clip(ds["disequilibrium"].values.astype(float), -50, 50)
-    ok = np.abs(x) > 1e-3  # below this float32 cancellation in q dominates
-    assert np.allclose(q[ok], (rf * -np.expm1(-x))[ok], rtol=1e-3, atol=1e-6 * np.abs(rf).max())
+    scale = np.abs(rf).max(axis=0)
+    # the difference of two 4-digit numbers is good to about 1e-4 of the larger one
+    assert np.all(np.abs(q - (rf - rr)) <= 1e-3 * np.maximum(np.abs(rf), np.abs(rr)) + 1e-12 * scale.max())
+    x = np.clip(store.disequilibrium(ds).values, -50, 50)
+    ok = np.abs(x) > 1e-2  # below this the stored digits of q and x cancel
+    assert np.allclose(q[ok], (rf * -np.expm1(-x))[ok], rtol=1e-2, atol=1e-6 * scale.max())
 
 
 def test_linear_regime_near_equilibrium(case_files):

@@ -144,6 +144,26 @@ class SignTracker:
                 self.min_group = min(self.min_group, float(group_sigma[mask].min()))
             np.minimum(self.member_min, sigma_j, out=self.member_min)
 
+    def update_many(self, sigma: np.ndarray) -> None:
+        """Same as :meth:`update` for a block of steps, sigma of shape (n_steps, n_reactions)."""
+        if sigma.size == 0:
+            return
+        self.peak_total = max(self.peak_total, float(sigma.sum(axis=1).max()))
+        if self.singles.any():
+            self.min_single = min(self.min_single, float(sigma[:, self.singles].min()))
+        if self.multi.any():
+            if not hasattr(self, "_groups_matrix"):
+                mask = self.multi & self.group_reversible
+                members = np.flatnonzero(mask[self.group_index])
+                cols = {g: i for i, g in enumerate(np.flatnonzero(mask))}
+                matrix = np.zeros((sigma.shape[1], max(len(cols), 1)))
+                for j in members:
+                    matrix[j, cols[self.group_index[j]]] = 1.0
+                self._groups_matrix = matrix if cols else None
+            if self._groups_matrix is not None:
+                self.min_group = min(self.min_group, float((sigma @ self._groups_matrix).min()))
+            np.minimum(self.member_min, sigma.min(axis=0), out=self.member_min)
+
     def audit(self, produced: np.ndarray) -> SignAudit:
         peak = self.peak_total if self.peak_total > 0 else 1.0
         total_abs = float(np.abs(produced).sum())

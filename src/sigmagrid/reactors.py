@@ -29,7 +29,7 @@ import numpy as np
 
 from .diagnostics import SignAudit, SignTracker
 from .mechanism import MechanismInfo
-from .units import GAS_CONSTANT, KMOL, PER_KMOL
+from .units import GAS_CONSTANT
 
 REACTOR_TYPES = ("isolated", "constant-pressure", "isothermal")
 _HELD_FIXED = {"isolated": "UV", "constant-pressure": "HP", "isothermal": "TP"}
@@ -258,38 +258,18 @@ def relax(
     started = _time.perf_counter()
     gas.TPX = temperature, pressure, mole_fractions
     mass = gas.density * settings.volume
-    nr = gas.n_reactions
     energy0 = _held_energy(reactor_type, gas)
     tracker = SignTracker(info)
 
-    times, temps, pressures, densities, ys, entropies, potentials, sigmas = ([] for _ in range(8))
-    produced = np.zeros(nr)
-
-    def record(t: float, volume: float) -> np.ndarray:
-        T = gas.T
-        A = -gas.delta_gibbs * PER_KMOL
-        q = gas.net_rates_of_progress * KMOL
-        sigma_j = A * q / T
-        s, phi = _potential(reactor_type, mass, gas)
-        times.append(t)
-        temps.append(T)
-        pressures.append(gas.P)
-        densities.append(gas.density)
-        ys.append(gas.Y)
-        entropies.append(s)
-        potentials.append(phi)
-        sigmas.append(float(sigma_j.sum()))
-        tracker.update(sigma_j)
-        return sigma_j * volume
+    path = _PathRecorder(gas, reactor_type, mass, tracker)
+    times, potentials = path.times, path.potentials
+    record = path.record
 
     def result(status: str, reason: str, equilibrium) -> Relaxation:
         relaxation = Relaxation(
             reactor=reactor_type, status=status, reason=reason, mass=mass,
-            time=np.asarray(times), temperature=np.asarray(temps), pressure=np.asarray(pressures),
-            density=np.asarray(densities), mass_fractions=np.asarray(ys).reshape(len(times), gas.n_species),
-            entropy=np.asarray(entropies), potential=np.asarray(potentials),
-            entropy_production_total=np.asarray(sigmas), entropy_produced=produced,
-            equilibrium=equilibrium, audit=tracker.audit(produced),
+            **path.finish(),
+            equilibrium=equilibrium, audit=tracker.audit(path.produced),
             molecular_weights=gas.molecular_weights, ignition_rise=settings.ignition_rise,
             energy_drift=(_held_energy(reactor_type, gas) - energy0) / abs(energy0) if energy0 else float("nan"),
             wall_seconds=_time.perf_counter() - started,
@@ -302,7 +282,7 @@ def relax(
         record(0.0, settings.volume)
         return result("failed", f"equilibrium solver: {_first_line(err)}", None)
 
-    previous = record(0.0, settings.volume)
+    record(0.0, settings.volume)
     phi0 = potentials[0]
     drive = equilibrium.potential - phi0
     probe = result("relaxed", "", equilibrium)
@@ -322,9 +302,8 @@ def relax(
     try:
         for _ in range(settings.max_steps):
             t = net.step()  # the last step may end past max_time by one solver step
-            current = record(t, reactor.volume)
-            produced += 0.5 * (t - t_prev) * (previous + current)
-            previous, t_prev = current, t
+            record(t, reactor.volume)
+            t_prev = t
             deficit = equilibrium.potential - potentials[-1]
             if deficit <= target:
                 status, reason = "relaxed", ""
@@ -343,6 +322,72 @@ def relax(
     except ct.CanteraError as err:
         status, reason = "failed", f"reactor integration at t = {t_prev:.4g} s: {_first_line(err)}"
     return result(status, reason, equilibrium)
+
+
+class _PathRecorder:
+    """Collects the full-resolution path step by step and integrates V sigma_j over it.
+
+    Per step only Cantera's arrays are copied (cheap); entropy production, its integral and the
+    sign audit are computed in vectorized chunks so that the per-step cost stays close to that of
+    appending a state to a SolutionArray, and memory stays bounded for large mechanisms.
+    """
+
+    CHUNK = 256
+
+    def __init__(self, gas: ct.Solution, reactor_type: str, mass: float, tracker: SignTracker):
+        self.gas, self.reactor_type, self.mass, self.tracker = gas, reactor_type, mass, tracker
+        self.times, self.potentials = [], []
+        self._T, self._P, self._rho, self._Y, self._S, self._V = [], [], [], [], [], []
+        self._A, self._q = [], []
+        self._sigma_total: list[np.ndarray] = []
+        self.produced = np.zeros(gas.n_reactions)
+        self._last = None  # (t, V sigma_j) of the last processed step
+
+    def record(self, t: float, volume: float) -> None:
+        gas = self.gas
+        self.times.append(t)
+        self._T.append(gas.T)
+        self._P.append(gas.P)
+        self._rho.append(gas.density)
+        self._Y.append(gas.Y)
+        self._V.append(volume)
+        self._A.append(gas.delta_gibbs)
+        self._q.append(gas.net_rates_of_progress)
+        s, phi = _potential(self.reactor_type, self.mass, gas)
+        self._S.append(s)
+        self.potentials.append(phi)
+        if len(self._A) >= self.CHUNK:
+            self._flush()
+
+    def _flush(self) -> None:
+        if not self._A:
+            return
+        n = len(self._A)
+        t = np.asarray(self.times[-n:])
+        T = np.asarray(self._T[-n:])
+        V = np.asarray(self._V[-n:])
+        # J/kmol * kmol/(m3 s) = J/(m3 s): the kmol factors cancel in A q
+        sigma = -np.asarray(self._A) * np.asarray(self._q) / T[:, None]
+        self._A.clear()
+        self._q.clear()
+        self.tracker.update_many(sigma)
+        self._sigma_total.append(sigma.sum(axis=1))
+        vs = sigma * V[:, None]
+        if self._last is not None:
+            t = np.concatenate([[self._last[0]], t])
+            vs = np.vstack([self._last[1], vs])
+        if t.size > 1:
+            self.produced += 0.5 * np.diff(t) @ (vs[1:] + vs[:-1])
+        self._last = (t[-1], vs[-1].copy())
+
+    def finish(self) -> dict:
+        self._flush()
+        n = len(self.times)
+        return dict(time=np.asarray(self.times), temperature=np.asarray(self._T), pressure=np.asarray(self._P),
+                    density=np.asarray(self._rho), mass_fractions=np.asarray(self._Y).reshape(n, self.gas.n_species),
+                    entropy=np.asarray(self._S), potential=np.asarray(self.potentials),
+                    entropy_production_total=np.concatenate(self._sigma_total) if self._sigma_total else np.zeros(0),
+                    entropy_produced=self.produced)
 
 
 def _settled(gas: ct.Solution, reactor_type: str, mass: float, potential: float, target: float) -> bool:
