@@ -11,10 +11,12 @@ configfile: "config/config.yaml"
 include: "workflow/rules/common.smk"
 include: "workflow/rules/cases.smk"
 include: "workflow/rules/summary.smk"
+include: "workflow/rules/rank.smk"
 
 
 rule all:
     input:
         f"{RESULTS}/summary.nc",
         f"{RESULTS}/cases.csv",
+        RANK_TARGETS,
     default_target: True
