@@ -6,6 +6,7 @@
     sigmagrid show FILE.nc              readable summary of a case file
     sigmagrid batch CONFIG --index K    run batch K of a grid (what the workflow calls)
     sigmagrid summarize FILES... --summary S --table T
+    sigmagrid plot FILE.nc [--out D]    per-case figures (more in cli_plot.py)
 
 Bad input ends with one line naming the field, exit status 2, and no output file.
 """
@@ -177,6 +178,9 @@ def build_parser() -> argparse.ArgumentParser:
     from . import cli_rank  # resample, rank, cut, assess-cut, cut-report, reduce, query
 
     cli_rank.add_commands(sub)
+    from . import cli_plot
+
+    cli_plot.add_commands(sub)
     return parser
 
 

@@ -54,7 +54,7 @@ def open_case_file(path: str | Path) -> xr.Dataset:
         raise InputError("FILE", f"'{path}' is not a readable netCDF file ({type(err).__name__})") from None
     needed = ("entropy_production", "net_rate", "forward_rate", "affinity", "temperature", "potential")
     if "case_id" not in ds.attrs or any(v not in ds for v in needed):
-        hint = " (it looks like the grid summary: its figures come from the workflow's grid_figures rule)" \
+        hint = " (it is a grid summary: plot it with 'sigmagrid plot-grid')" \
             if "case" in ds.dims else ""
         raise InputError("FILE", f"'{path}' is not a sigmagrid case file: it lacks "
                          f"{'the case_id attribute' if 'case_id' not in ds.attrs else 'per-reaction diagnostics'}{hint}")
