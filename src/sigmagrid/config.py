@@ -33,6 +33,7 @@ DEFAULTS: dict[str, Any] = {
                   "negative_entropy": "keep", "keep_species": [], "validate": True, "validation_cases": {},
                   "max_ignition_delay_error": 0.05, "max_equilibrium_temperature_error": 2.0,
                   "max_entropy_produced_error": 0.02},
+    "figures": {"cases": "all", "top_reactions": 6, "ranking_top": 12},
 }
 
 
@@ -113,6 +114,8 @@ def _describe(error: jsonschema.ValidationError) -> tuple[str, str]:
         return field, f"must list at least {sch['minItems']} value(s); it is empty"
     if kind == "uniqueItems":
         return field, f"lists a value twice: {val!r}"
+    if kind in ("anyOf", "oneOf") and "description" in sch:
+        return field, f"{val!r} is not allowed; {sch['description']}"
     if kind in ("minLength", "pattern"):
         return field, f"{val!r} is not a valid value ({error.message})"
     return field, error.message
@@ -196,6 +199,10 @@ def read_config_text(path: str | Path) -> str:
 
 
 def config_hash(config: dict) -> str:
-    """sha256 of the validated config in canonical JSON: the same settings give the same hash."""
+    """sha256 of the validated config in canonical JSON: the same settings give the same hash.
+
+    The ``figures`` section changes no number, so it is left out.
+    """
+    config = {k: v for k, v in config.items() if k != "figures"}
     text = json.dumps(config, sort_keys=True, separators=(",", ":"), default=str)
     return hashlib.sha256(text.encode()).hexdigest()
