@@ -404,4 +404,13 @@ def benchmark(n_cases: int = 1000, n_reactions: int = 325, folder: str | Path | 
             started = time.perf_counter()
             task(open_dataset(path))
             out.append((name, time.perf_counter() - started))
+        # the same question as a user asks it: a fresh interpreter, imports and all
+        import subprocess
+        import sys
+
+        started = time.perf_counter()
+        done = subprocess.run([sys.executable, "-m", "sigmagrid", "query", "top", "--summary", str(path),
+                               "--select", "reactor=isolated", "--format", "csv"], capture_output=True, text=True)
+        if done.returncode == 0:
+            out.append(("whole command `sigmagrid query top` (new process)", time.perf_counter() - started))
     return out
