@@ -89,13 +89,13 @@ class SeaSettings:
     n_progress: int = 101
     end_progress: float = 1.0 - 1e-6
     irreversible: str = "reversible"
-    rtol: float = 1e-7
-    atol: float = 1e-9
+    rtol: float = 1e-6
+    atol: float = 1e-8
     max_steps: int = 20_000
     max_wall_seconds: float = 120.0
     n_modes: int = 10
     trace_level: float = 1e-14
-    time_factor: float = 1e4
+    time_factor: float = 1e3
 
     def check(self) -> None:
         """Raise ``ValueError`` naming the bad field."""
@@ -213,6 +213,8 @@ def fit_arrhenius(x, q, w, valid, temperature, reference_temperature):
     squares, found by a coarse scan and golden-section refinement within |b| (1/T_min - 1/T_max) <= 40.
     Returns (m_ref mol m-3 s-1, b K). With no temperature span (isothermal) b = 0.
     """
+    rows = w > 1e-12 * w.max()  # rows without weight change nothing
+    x, q, w, valid, temperature = x[rows], q[rows], w[rows], valid[rows], temperature[rows]
     ww = w[:, None] * valid
     u = 1.0 / temperature - 1.0 / reference_temperature  # 1/K
     span = float(u.max() - u.min()) if u.size else 0.0
@@ -241,7 +243,7 @@ def fit_arrhenius(x, q, w, valid, temperature, reference_temperature):
     c = hi - golden * (hi - lo)
     d = lo + golden * (hi - lo)
     sc, sd = score(c)[0], score(d)[0]
-    for _ in range(30):
+    for _ in range(24):  # interval shrinks to 0.618^24 ~ 1e-5 of a scan cell
         left = sc > sd  # maximum in [lo, d]
         hi = np.where(left, d, hi)
         lo = np.where(left, lo, c)
@@ -387,7 +389,8 @@ class _System:
     def _kinetics(self, T):
         g = self.gas
         x = -g.delta_gibbs[self.rx] * PER_KMOL / (_R * T)
-        rf = g.forward_rates_of_progress[self.rx] * KMOL
+        # only mass action needs Cantera's rate evaluation; a metric needs the thermodynamics only
+        rf = g.forward_rates_of_progress[self.rx] * KMOL if self.mob.kind == "log-mean" else None
         return x, rf
 
     def _rates(self, T, x, rf):
@@ -584,10 +587,14 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
             if solver.status == "failed":
                 status, reason = "failed", f"BDF at t = {solver.t:.4g} s, progress {lams[-1]:.6g}: {msg}"
                 break
+            # project the accepted step back onto the element constraints and hand it to the
+            # solver (its newest history entry D[0] is the current state), so drift cannot pile up
             n, T, raw = project_state(solver.y)
+            z_p = system.z_of(n)
+            solver.y = z_p
+            solver.D[0] = z_p
             phi = system.potential()
             u_err = max(u_err, abs(system.held_energy() - u0) / max(abs(u0), 1e-300))
-            e_err = max(e_err, float(np.max(np.abs(elements @ n - target) / e_scale)))
             raw_err = max(raw_err, raw)
             worst_drop = max(worst_drop, (phi_prev - phi) / drive)
             phi_prev = phi
@@ -617,6 +624,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
         n, T, _ = project_state(dens[k](t))
         return lam_of(system.potential())
 
+    phi_grid_prev, grid_drop = np.nan, 0.0
     for i, level in enumerate(grid):
         if level < lams_a[0] or level > lams_a[-1]:
             continue
@@ -628,17 +636,24 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
             T = system.temperature
         else:
             a, b = ts_a[k - 1], ts_a[k]
-            fa = lams[k - 1] - level
-            fb = lams[k] - level
-            if fa * fb > 0 or fa == fb:
-                t = b
+            fa = lam_at(a, k - 1) - level
+            fb = lam_at(b, k - 1) - level
+            if fa * fb > 0 or fa == fb:  # the interpolant's ends moved by the projection: interpolate
+                f = (level - lams[k - 1]) / (lams[k] - lams[k - 1]) if lams[k] != lams[k - 1] else 1.0
+                t = a + min(max(f, 0.0), 1.0) * (b - a)
             else:
                 t = brentq(lambda s: lam_at(s, k - 1) - level, a, b, xtol=1e-14 * max(b, 1e-300), rtol=1e-12,
                            maxiter=60)
             n, T, _ = project_state(dens[k - 1](t))
+        e_err = max(e_err, float(np.max(np.abs(elements @ n - target) / e_scale)))
+        u_err = max(u_err, abs(system.held_energy() - u0) / max(abs(u0), 1e-300))
+        phi = system.potential()
+        if i > 0 and np.isfinite(phi_grid_prev):
+            grid_drop = max(grid_drop, (phi_grid_prev - phi) / drive)
+        phi_grid_prev = phi
         times[i], temps[i] = t, T
         xs[i] = n / n.sum()
-    return _Path(status, reason, times, temps, xs, e_err, raw_err, u_err, max(worst_drop, 0.0), steps,
+    return _Path(status, reason, times, temps, xs, e_err, raw_err, u_err, max(worst_drop, grid_drop, 0.0), steps,
                  _time.perf_counter() - started)
 
 
@@ -656,20 +671,27 @@ def _hessian_z(system: _System, n, T, V):
 def sea_spectrum(system: _System, n_eq, mobility: np.ndarray) -> np.ndarray:
     """Nonzero relaxation rates (s-1, ascending) of q = M x linearised at equilibrium.
 
-    K = V M^1/2 nu^T H nu M^1/2 with H the Hessian of -Phi/R in amounts (symmetric, positive
-    semi-definite on the constraint); its nonzero eigenvalues are the rates (Onsager 1931;
-    de Groot and Mazur 1962, ch. VI). The number of nonzero modes is the rank of nu M nu^T.
+    The linearisation is dN/dt = -L H dN with L = V nu M nu^T and H the Hessian of -Phi/R in
+    amounts on the reactor constraint (both symmetric positive semi-definite), so the rates are
+    the eigenvalues of L H (Onsager 1931; de Groot and Mazur 1962, ch. VI). They are computed
+    as those of the symmetric G^1/2 P G^1/2 in species space, with G = N^1/2 H N^1/2 (of order one)
+    and P = N^-1/2 L N^-1/2; the number of nonzero modes is the rank of nu on the support of M.
     """
     n, T, V = system.state(system.z_of(n_eq))
-    Hz = _hessian_z(system, n, T, V)
-    H = Hz / n[system.active][None, :]
-    H = 0.5 * (H + H.T)
+    Hz = _hessian_z(system, n, T, V)  # H diag(N)
+    root = np.sqrt(n[system.active])
+    G = Hz * root[:, None] / root[None, :]
+    G = 0.5 * (G + G.T)
+    w, Q = np.linalg.eigh(G)
+    Gh = (Q * np.sqrt(np.clip(w, 0.0, None))) @ Q.T
     m = np.where(np.isfinite(mobility) & (mobility > 0), mobility, 0.0)
-    B = system.nu_a * np.sqrt(m)[None, :]
-    K = V * (B.T @ H @ B)
-    rank = np.linalg.matrix_rank(system.nu_a[:, m > 0]) if (m > 0).any() else 0
-    w = np.linalg.eigvalsh(0.5 * (K + K.T))
-    return np.sort(w)[::-1][:rank][::-1]
+    B = system.nu_a / root[:, None]
+    P = V * ((B * m[None, :]) @ B.T)
+    S = Gh @ P @ Gh
+    gram = np.linalg.eigvalsh((system.nu_a * (m > 0)[None, :]) @ system.nu_a.T)
+    rank = int((gram > 1e-9 * max(gram.max(), 1.0)).sum())
+    rates = np.linalg.eigvalsh(0.5 * (S + S.T))
+    return np.sort(np.sort(rates)[::-1][:rank])
 
 
 def _reference_solution(gas: ct.Solution, info: MechanismInfo, treatment: str) -> ct.Solution:
