@@ -56,7 +56,7 @@ def case_files(tmp_path_factory):
 @pytest.fixture()
 def workdir(tmp_path):
     """A copy of the workflow (Snakefile, workflow/, config/) in a fresh folder."""
-    for name in ("Snakefile", "workflow", "config"):
+    for name in ("Snakefile", "workflow", "config", "profiles"):
         src = REPO / name
         (shutil.copytree if src.is_dir() else shutil.copy)(src, tmp_path / name)
     return tmp_path
