@@ -12,6 +12,7 @@ include: "workflow/rules/common.smk"
 include: "workflow/rules/cases.smk"
 include: "workflow/rules/summary.smk"
 include: "workflow/rules/rank.smk"
+include: "workflow/rules/figures.smk"
 
 
 rule all:
@@ -19,4 +20,5 @@ rule all:
         f"{RESULTS}/summary.nc",
         f"{RESULTS}/cases.csv",
         RANK_TARGETS,
+        FIGURE_TARGETS,
     default_target: True

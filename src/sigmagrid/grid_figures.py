@@ -22,6 +22,7 @@ import pandas as pd
 import xarray as xr
 from matplotlib import colormaps
 from matplotlib.colors import LogNorm, Normalize
+from matplotlib.ticker import MaxNLocator
 
 from . import plotstyle as ps
 from .errors import InputError
@@ -275,17 +276,31 @@ def _cuts_frame(source) -> pd.DataFrame:
     if isinstance(source, xr.Dataset):
         frame = pd.DataFrame({"cut": source["cut"].values.astype(str),
                               "criterion": source["criterion"].values.astype(str),
+                              "threshold": source["threshold"].values.astype(float),
                               "reactions": source["n_reactions"].values, "species": source["n_species"].values,
                               **{f"{k}_max": source[f"{k}_max"].values for k, _, _ in _ERROR_PANELS}})
         tolerances = {k: source.attrs.get(f"tolerance_{k}", np.nan) for k, _, _ in _ERROR_PANELS}
     else:
         frame = source.rename(columns={"reactions": "reactions", "species": "species"}).copy()
-        missing = [c for c in ["criterion", "reactions", "species"] if c not in frame]
+        missing = [c for c in ["criterion", "threshold", "reactions", "species"] if c not in frame]
         if missing:
             raise Skipped(f"reduction table lacks {', '.join(missing)}")
         tolerances = {k: np.nan for k, _, _ in _ERROR_PANELS}
     frame.attrs["tolerances"] = tolerances
     return frame
+
+
+def _label_cuts(ax, part: pd.DataFrame, shown: np.ndarray, colour: str, series: int) -> None:
+    """Threshold and species kept beside each point; alternately above and below, turned inwards
+    near the right edge, so that neighbouring cuts do not print over each other."""
+    x_max = float(part["reactions"].max())
+    for n, (x, y, thr, species) in enumerate(zip(part["reactions"], shown, part["threshold"], part["species"])):
+        if not np.isfinite(y):
+            continue
+        right = x > 0.8 * x_max
+        ax.annotate(f"≥{thr:g}: {int(species)} sp.", (x, y), textcoords="offset points",
+                    xytext=(-5 if right else 5, (8 if n % 2 == 0 else -14) - 10 * series),
+                    ha="right" if right else "left", fontsize=ps.FONT_SIZE - 2, color=colour)
 
 
 def plot_cuts(source, total_reactions: int | None = None):
@@ -309,9 +324,11 @@ def plot_cuts(source, total_reactions: int | None = None):
             part = frame[frame["criterion"] == criterion].sort_values("reactions")
             v = part[f"{key}_max"].to_numpy(float)
             shown = np.where(np.isfinite(v), np.maximum(v, floor), np.nan)  # an exact 0 sits on the floor
+            colour = ps.LINE_SERIES[k % len(ps.LINE_SERIES)]
             ax.plot(part["reactions"], shown, marker=markers[k % len(markers)], ms=6, lw=1.2,
-                    color=ps.LINE_SERIES[k % len(ps.LINE_SERIES)], ls=ps.LINESTYLES[k % len(ps.LINESTYLES)],
-                    label=f"criterion {criterion}")
+                    color=colour, ls=ps.LINESTYLES[k % len(ps.LINESTYLES)], label=f"criterion {criterion}")
+            if ax is axes[0] and len(part) <= 10:
+                _label_cuts(ax, part, shown, colour, k)
         tol = frame.attrs["tolerances"].get(key, np.nan)
         if np.isfinite(tol) and tol > 0:
             ax.axhline(tol, color="0.3", lw=1.0, ls=":")
@@ -320,12 +337,14 @@ def plot_cuts(source, total_reactions: int | None = None):
         if total_reactions:
             ax.axvline(total_reactions, color="0.6", lw=0.8)
         ax.set_yscale("log")
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
         ax.set_xlabel(ps.axis_label("reactions kept", "1"))
         ax.set_ylabel(ps.axis_label(f"largest {text}", units))
         ax.grid(True, color="0.9", lw=0.6)
     fig.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncols=len(criteria), frameon=False,
                fontsize=ps.FONT_SIZE - 1)
-    note = "largest over the validated cases; an error of exactly 0 is drawn at the bottom of the axis"
+    note = ("largest over the validated cases; labels: threshold and species kept; an error of exactly 0 is "
+            "drawn at the bottom of the axis")
     if total_reactions:
         note += f"; grey line: full mechanism, {total_reactions} reactions"
     fig.suptitle(note, fontsize=ps.FONT_SIZE - 1)

@@ -1,0 +1,72 @@
+# Figures and the Snakemake report: per-case figures for the configured subset of cases, grid
+# figures from the summary (and the ranking and cuts when those rules are in the workflow).
+# `snakemake --report results/report.html` after a run collects every PNG with its caption.
+from sigmagrid import figures as sg_figures
+from sigmagrid.safety import CAUTION
+
+try:
+    FIGURE_CASES = sg_figures.select_cases(GRID.cases, CONFIG["figures"]["cases"])
+except InputError as err:
+    sys.stderr.write(f"sigmagrid: error: {err.field}: {err.message}\n")
+    sys.exit(2)
+
+CASE_LABEL = {c.case_id: c.label for c in GRID.cases}
+# the ranking and cut rules live in rank.smk; without them the grid figures skip those charts
+_RANKING = f"{RESULTS}/ranking.nc" if "RANK_TARGETS" in globals() else None
+_REDUCTION = f"{RESULTS}/reduction.nc" if "RANK_TARGETS" in globals() else None
+
+
+report: "../report/workflow.rst"
+
+
+rule case_figures:
+    input:
+        f"{RESULTS}/cases/{{case_id}}.nc",
+    output:
+        report(
+            directory(f"{RESULTS}/figures/cases/{{case_id}}"),
+            patterns=["{figure}.png"],
+            caption="../report/case_figures.rst",
+            category="Per-case figures",
+            subcategory=lambda w: CASE_LABEL[w.case_id],
+            labels=lambda w: {"case": CASE_LABEL[w.case_id], "figure": w.figure},
+        ),
+    wildcard_constraints:
+        case_id="[0-9a-f]{16}",
+    params:
+        top=CONFIG["figures"]["top_reactions"],
+        caution=CAUTION,
+    log:
+        f"{RESULTS}/logs/figures_{{case_id}}.log",
+    shell:
+        "{SIGMAGRID} plot {input} --out {output} --top {params.top} > {log} 2>&1"
+
+
+rule grid_figures:
+    input:
+        summary=f"{RESULTS}/summary.nc",
+        tables=[p for p in (_RANKING, _REDUCTION) if p],
+    output:
+        report(
+            directory(f"{RESULTS}/figures/grid"),
+            patterns=["{figure}.png"],
+            caption="../report/grid_figures.rst",
+            category="Grid figures",
+            labels=lambda w: {"figure": w.figure},
+        ),
+    params:
+        tables=(f"--ranking {_RANKING} " if _RANKING else "") + (f"--reduction {_REDUCTION}" if _REDUCTION else ""),
+        top=CONFIG["figures"]["ranking_top"],
+        caution=CAUTION,
+    log:
+        f"{RESULTS}/logs/figures_grid.log",
+    shell:
+        "{SIGMAGRID} plot-grid {input.summary} --out {output} {params.tables} --top {params.top} > {log} 2>&1"
+
+
+FIGURE_TARGETS = [f"{RESULTS}/figures/cases/{c.case_id}" for c in FIGURE_CASES] + [f"{RESULTS}/figures/grid"]
+
+
+rule figures:
+    input:
+        FIGURE_TARGETS,
