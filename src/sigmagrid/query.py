@@ -185,6 +185,7 @@ def top_reactions(summary: xr.Dataset, selection: Mapping[str, Any] | None = Non
         warnings.simplefilter("ignore", RuntimeWarning)
         table = pd.DataFrame({
             "reaction": s["reaction"].values.astype(str),
+            "reaction_index": np.arange(s.sizes["reaction"]),  # duplicate reactions share an equation
             "share_mean [1]": np.nanmean(share, axis=0),
             "share_max [1]": np.nanmax(share, axis=0),
             "entropy_produced [J K-1]": np.nansum(s["entropy_produced"].values[usable], axis=0),
@@ -215,6 +216,7 @@ def top_reactions_at(progress: xr.Dataset, level: float, selection: Mapping[str,
         warnings.simplefilter("ignore", RuntimeWarning)
         table = pd.DataFrame({
             "reaction": p["reaction"].values.astype(str),
+            "reaction_index": np.arange(p.sizes["reaction"]),
             "share_mean [1]": np.nanmean(share, axis=0),
             "share_max [1]": np.nanmax(share, axis=0),
             "affinity_mean [J mol-1]": np.nanmean(p["affinity"].values.astype(float), axis=0),
