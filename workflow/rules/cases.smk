@@ -2,24 +2,13 @@
 # with status "failed" and does not stop its batch.
 
 
-rule freeze_config:
-    output:
-        FROZEN_CONFIG,
-    params:
-        text=json.dumps(CONFIG, sort_keys=True, indent=1),
-    run:
-        from sigmagrid.store import write_text_atomic
-
-        write_text_atomic(params.text, output[0])
-
-
 for _index, _batch in enumerate(BATCHES):
 
     rule:
         name:
             f"cases_batch_{_index:04d}"
         input:
-            FROZEN_CONFIG,
+            CASES_CONFIG,
         output:
             [case_file(c) for c in _batch],
         params:
