@@ -290,3 +290,33 @@ def test_bad_reduction_config_names_the_field():
     with pytest.raises(InputError) as err:
         _config(reduction={"validation_cases": {"colour": "red"}})
     assert "reactor" in err.value.message
+
+
+def test_gri30_hydrogen_case_drops_the_carbon_chemistry(tmp_path):
+    # Reasoned out: a hydrogen-air mixture holds no carbon, so every reaction of GRI-Mech 3.0 with
+    # a carbon species has zero forward and reverse rates (mass action), zero entropy production
+    # and a zero EPA share; any positive threshold drops them, and with them every carbon species.
+    # Dropping reactions that never run must cost nothing (to round-off) on the same case.
+    config = config_mod.validate({
+        "mechanism": "gri30.yaml", "reactors": ["isolated"],
+        "feed": {"fuel": "H2:1", "oxidizer": AIR, "equivalence_ratio": [1.0]},
+        "temperature": [1200.0], "pressure": [101325.0], "stop": {"max_time": 0.2},
+        "reduction": {"criteria": ["local"], "thresholds": [0.0, 1e-12]}})
+    runner.run_grid(config, tmp_path, report=lambda s: None)
+    out = rank.reduce_in_process(config, tmp_path, report=lambda s: None)
+    full = ct.Solution("gri30.yaml")
+    carbon = {s.name for s in full.species() if "C" in s.composition}
+    cut = {c.threshold: c for c in out["cuts"]}[1e-12]
+    reduced = ct.Solution(str(cut.path))
+    assert not carbon & set(reduced.species_names)
+    assert {"H2", "O2", "N2", "AR", "H2O", "OH"} <= set(reduced.species_names)
+    for reaction in full.reactions():
+        names = set(reaction.reactants) | set(reaction.products)
+        if names & carbon:
+            assert reaction.equation not in reduced.reaction_equations()
+    assert cut.keep.sum() < full.n_reactions
+    row = out["table"].set_index("cut").loc["local-1e-12"]
+    assert row["failed_cases [1]"] == 0
+    assert row["ignition_delay_error_max [1]"] < 1e-4  # the step-based estimate moves by a step at most
+    assert row["equilibrium_temperature_error_max [K]"] < 1e-6
+    assert row["entropy_produced_error_max [1]"] < 1e-6
