@@ -286,3 +286,6 @@ def test_gri30_methane_air_20_atm():
     np.testing.assert_allclose(ds.relaxation_rates_sea.values[:5], ds.relaxation_rates_kinetics.values[:5],
                                rtol=1e-2)
     assert str(ds.sea_status.sel(metric="fitted-diagonal").values) == "ok"
+    # alignment over the reactions with detailed balance; the rest is reported as a share
+    assert np.all(np.abs(lm.alignment.values - 1.0) <= 1e-9)
+    assert 0 < float(ds.irreversible_entropy_share) < 0.1

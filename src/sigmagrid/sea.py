@@ -727,7 +727,7 @@ def kinetics_spectrum(gas, info, treatment, reactor, T, P, X, volume, rank) -> n
     """Relaxation rates (s-1, ascending) from Cantera's reactor Jacobian at the equilibrium state.
 
     ``IdealGasMoleReactor`` (isolated) or ``IdealGasConstPressureMoleReactor`` (constant pressure,
-    isothermal with energy off), analytic Jacobian of Cantera's own governing equations; the
+    isothermal with energy off), Jacobian of Cantera's own governing equations; the
     ``rank`` fastest-decaying eigenvalues are the chemical modes, the rest are conserved quantities.
     """
     ref = gas if info.n_irreversible == 0 else _reference_solution(gas, info, treatment)
@@ -740,7 +740,10 @@ def kinetics_spectrum(gas, info, treatment, reactor, T, P, X, volume, rank) -> n
                                                 **kwargs)
     net = ct.ReactorNet([r])
     net.initialize()
-    J = np.asarray(r.jacobian)
+    # Cantera's finite-difference Jacobian of its own governing equations: the analytic
+    # ``jacobian`` of the constant-pressure mole reactor leaves out terms (0.5 % on a slow mode of
+    # gri30 at 1 atm), the finite-difference one agrees with it elsewhere to 1e-7
+    J = np.asarray(r.finite_difference_jacobian)
     rates = -np.linalg.eigvals(J).real
     return np.sort(np.sort(rates)[::-1][:rank])
 
@@ -863,6 +866,7 @@ def _compare(gas, info, rel, sample_index, settings):
     lm_all = log_mean_mobility(rf_all, rr_all, x_all)
 
     mobility = {}
+    notes = {m: [] for m in settings.metrics}
     params = {}
     quality = {}
     align_full = {}
@@ -874,14 +878,18 @@ def _compare(gas, info, rel, sample_index, settings):
             M_path = np.broadcast_to(np.where(included, r_eq, np.nan), x_all.shape)
             mobility[metric] = np.where(included, r_eq, np.nan)
         elif metric == "fitted-scalar":
-            m = fit_scalar(x_all, q_all, w, valid)
+            m = float(_clip_negative(np.array([fit_scalar(x_all, q_all, w, valid)]), np.array([True]), metric,
+                                     notes)[0])
             mobility[metric] = np.where(included, m, np.nan)
             M_path = np.broadcast_to(mobility[metric], x_all.shape)
         elif metric == "fitted-diagonal":
-            mobility[metric] = np.where(included, fit_diagonal(x_all, q_all, w, valid), np.nan)
+            m = fit_diagonal(x_all, q_all, w, valid)
+            m = _clip_negative(m, included, metric, notes)
+            mobility[metric] = np.where(included, m, np.nan)
             M_path = np.broadcast_to(mobility[metric], x_all.shape)
         else:
             m_ref, b = fit_arrhenius(x_all, q_all, w, valid, rel.temperature, eq.temperature)
+            m_ref = _clip_negative(m_ref, included, metric, notes)
             params["m_ref"] = np.where(included, m_ref, np.nan)
             params["b"] = np.where(included, b, np.nan)
             mobility[metric] = np.full(nr, np.nan)
@@ -889,9 +897,19 @@ def _compare(gas, info, rel, sample_index, settings):
                                                                          params["b"]), -700, 700))
         Mc = np.where(included[None, :] & np.isfinite(M_path), M_path, 0.0)
         quality[metric] = fit_quality(q_all, Mc * x_all, w, valid)
-        xi = np.where(included[None, :], x_all, 0.0)
-        qi = np.where(included[None, :], q_all, 0.0)
-        align_full[metric] = alignment(xi, qi, Mc)
+        # the alignment is taken over the reactions with detailed balance: an irreversible reaction's
+        # observed rate is not of the form M x under any metric (its x q can be negative); its share
+        # of the entropy production is reported separately
+        aligned = included & info.reversible
+        xi = np.where(aligned[None, :], x_all, 0.0)
+        qi = np.where(aligned[None, :], q_all, 0.0)
+        align_full[metric] = alignment(xi, qi, np.where(aligned[None, :], Mc, 0.0))
+
+    # share of |entropy production| by irreversible reactions on the compared part of the path
+    w_t = path_weights("time", rel.time, rel.potential, lam) * (lam >= settings.start_progress)
+    sig = np.abs(x_all * q_all) * w_t[:, None]
+    total_sig = float(sig.sum())
+    irr_share = float(sig[:, ~info.reversible].sum()) / total_sig if total_sig > 0 else float("nan")
 
     # entropy-production ratio observed / largest at equal cost, along the path (entropy-weighted)
     # over the compared part of the path (progress >= start_progress), where no species is absent
@@ -938,9 +956,6 @@ def _compare(gas, info, rel, sample_index, settings):
             phi_start = system.potential()
             if phi_eq_sea is None:
                 phi_eq_sea = _equilibrium_potential(gas, rel.reactor, rel.mass)
-            if metric != "log-mean" and np.any(mob.m < 0):
-                raise ValueError("negative fitted mobility (irreversible or inconsistent reactions): "
-                                 "the metric is not positive definite")
             path = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings, t_scale)
             level = settings.trace_level
             while path.status == "failed" and metric != "log-mean" and 0 < level < 1e-8:
@@ -953,6 +968,8 @@ def _compare(gas, info, rel, sample_index, settings):
                                 + (f"; {retry.reason}" if retry.reason else ""))
                 path = retry
             path.trace_level = level if metric != "log-mean" else float("nan")
+            if notes[metric]:
+                path.reason = "; ".join(notes[metric] + ([path.reason] if path.reason else []))
             paths[metric] = path
         except Exception as err:
             paths[metric] = _Path("failed", f"{type(err).__name__}: {str(err).splitlines()[0][:300] if str(err) else ''}",
@@ -999,8 +1016,19 @@ def _compare(gas, info, rel, sample_index, settings):
         "ep_ratio": ep_ratio, "obs_time": obs_time, "obs_temp": obs_temp, "obs_x": obs_x, "paths": paths,
         "t_start": t_start, "lam_start": lam_start, "spectra": spectra, "slow_diff": slow_diff,
         "spectrum_reason": spectrum_reason, "included": included, "eq_T": eq.temperature,
+        "irr_share": irr_share,
     }
     return _assemble(gas, rel, sample_index, settings, result, "")
+
+
+def _clip_negative(m, included, metric, notes):
+    """Set negative fitted mobilities to zero (a metric must be positive semi-definite) and say so."""
+    bad = included & np.isfinite(m) & (m < 0)
+    if bad.any():
+        notes[metric].append(f"{int(bad.sum())} negative fitted mobilit{'y' if bad.sum() == 1 else 'ies'} "
+                             "(reactions whose x q < 0 on the path, e.g. irreversible ones) set to zero")
+        m = np.where(bad, 0.0, m)
+    return m
 
 
 def _equilibrium_potential(gas, reactor, mass):
@@ -1041,7 +1069,9 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
     reasons = np.array([reason] * nmet, dtype=object)
     included = np.zeros(nr, dtype=np.int8)
     attrs_extra = {}
+    irr_share = nan
     if res is not None:
+        irr_share = res["irr_share"]
         included = res["included"].astype(np.int8)
         obs_t, obs_T = res["obs_time"], res["obs_temp"]
         rates_sea, rates_kin = res["spectra"]["sea"], res["spectra"]["kinetics"]
@@ -1114,6 +1144,9 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
                                                 reference_temperature_K=float(res["eq_T"]) if res else nan),
             "arrhenius_activation_temperature": var(("reaction",), b_arr, "K",
                                                     "fitted-arrhenius activation temperature b_j"),
+            "irreversible_entropy_share": var((), irr_share, "1",
+                                              "share of the entropy production of irreversible reactions, "
+                                              "compared part of the observed path (left out of the alignment)"),
             "sea_reaction_included": var(("reaction",), included, "1",
                                          "1 where the reaction takes part in the steepest-ascent dynamics"),
             "sea_status": var(("metric",), status.astype(str), "1", "status of the steepest-ascent path"),
