@@ -317,7 +317,9 @@ def test_gri30_hydrogen_case_drops_the_carbon_chemistry(tmp_path):
     assert cut.keep.sum() < full.n_reactions
     row = out["table"].set_index("cut").loc["local-1e-12"]
     assert row["failed_cases [1]"] == 0
-    assert row["ignition_delay_error_max [1]"] < 1e-4  # the step-based estimate moves by a step at most
+    # the ignition delay is the midpoint of the solver step with the largest dT/dt: another step
+    # sequence moves it by about a step width (7.5e-5 relative here)
+    assert row["ignition_delay_error_max [1]"] < 1e-3
     assert row["equilibrium_temperature_error_max [K]"] < 1e-6
     # the entropy produced is a trapezoid integral over the solver's steps, accurate to about its
     # balance residual (~5e-6 here); another step sequence moves it within that
