@@ -1,0 +1,242 @@
+"""Figures and the Snakemake report: a tiny grid run end to end, then the report; the plot command.
+
+Image checks read the files with Pillow (an independent PNG decoder, a matplotlib dependency) and
+the PNG signature of the PNG specification (ISO/IEC 15948, W3C PNG 2nd ed., section 5.2).
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+import xarray as xr
+import yaml
+from PIL import Image
+
+from conftest import REPO, run_cli
+from sigmagrid import config as config_mod, figures, grid as grid_mod, grid_figures, plotstyle, store
+from sigmagrid.errors import InputError
+from sigmagrid.safety import CAUTION
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification, section 5.2
+
+TINY = {
+    "study": "tiny figure grid",
+    "mechanism": "h2o2.yaml",
+    "reactors": ["isolated"],
+    "feed": {"fuel": "H2:1", "oxidizer": "O2:1, N2:3.76", "equivalence_ratio": [1.0]},
+    "temperature": [1100.0],
+    "pressure": [101325.0, 506625.0],
+    "stop": {"max_time": 0.5},
+    "batch": {"cases_per_job": 2},
+    "reduction": {"thresholds": [0.0, 0.05]},
+    "figures": {"cases": 1},
+}
+
+
+def assert_image(path, size):
+    """A valid PNG of exactly ``size`` (width, height) px that is not blank."""
+    assert path.is_file(), f"missing figure {path}"
+    assert path.read_bytes()[:8] == PNG_SIGNATURE, f"{path} is not a PNG"
+    with Image.open(path) as img:
+        img.verify()  # Pillow's own integrity check of the chunks
+    with Image.open(path) as img:
+        assert img.size == tuple(size), f"{path.name}: {img.size} px, expected {size}"
+        pixels = np.asarray(img.convert("L"), dtype=float)
+    assert pixels.std() > 10.0, f"{path.name} looks blank (grey-level spread {pixels.std():.1f})"
+    inked = (pixels < 200).mean()
+    assert inked > 0.01, f"{path.name} has almost no ink ({inked:.2%} dark pixels)"
+
+
+def snakemake(workdir, *args):
+    return subprocess.run([sys.executable, "-m", "snakemake", "--cores", "2", *args], cwd=workdir,
+                          capture_output=True, text=True, timeout=900)
+
+
+@pytest.fixture(scope="module")
+def flow(tmp_path_factory):
+    """The workflow run on the tiny grid, then ``--report``."""
+    import shutil
+
+    workdir = tmp_path_factory.mktemp("figflow")
+    for name in ("Snakefile", "workflow", "config"):
+        src = REPO / name
+        (shutil.copytree if src.is_dir() else shutil.copy)(src, workdir / name)
+    (workdir / "config" / "config.yaml").write_text(yaml.safe_dump(TINY))
+    done = snakemake(workdir)
+    assert done.returncode == 0, done.stderr[-3000:]
+    report = snakemake(workdir, "--report", "results/report.html")
+    assert report.returncode == 0, report.stderr[-3000:]
+    return workdir
+
+
+def expected_case_figures(case_path):
+    names = ["entropy_production", "affinity_rate"]
+    with xr.open_dataset(case_path) as ds:
+        if "sea_time" in ds and "alignment" in ds:
+            names += ["sea_paths", "alignment"]
+    return names
+
+
+def expected_grid_figures(results):
+    names = ["map_ignition_delay", "map_entropy_produced", "map_time_to_90pct"]
+    with xr.open_dataset(results / "summary.nc") as s:
+        angle = grid_figures.path_angle_variable(s)
+        if angle is not None:
+            names += [f"map_path_angle_{m}" for m in s["metric"].values.astype(str)]
+    if (results / "ranking.nc").is_file():
+        names.append("ranking")
+    if (results / "reduction.nc").is_file():
+        names.append("cuts")
+    return names
+
+
+def test_every_expected_figure_is_a_valid_image_of_its_size(flow):
+    results = flow / "results"
+    grid = grid_mod.expand(config_mod.validate(TINY))
+    chosen = figures.select_cases(grid.cases, 1)
+    assert len(chosen) == 1
+    for case in grid.cases:
+        folder = results / "figures" / "cases" / case.case_id
+        if case not in chosen:
+            assert not folder.exists(), "figures.cases: 1 must draw one case only"
+            continue
+        for name in expected_case_figures(results / "cases" / f"{case.case_id}.nc"):
+            assert_image(folder / f"{name}.png", figures.SIZE)
+    sizes = {"ranking": grid_figures.RANKING_SIZE, "cuts": grid_figures.CUTS_SIZE}
+    # one reactor type (one row of panels), two pressures (two columns)
+    for name in expected_grid_figures(results):
+        assert_image(results / "figures" / "grid" / f"{name}.png", sizes.get(name, grid_figures.map_size(1, 2)))
+        svg = (results / "figures" / "grid" / f"{name}.svg").read_text()
+        assert svg.lstrip().startswith("<?xml") and "<svg" in svg
+    # the rank rules are part of the default workflow, so their charts must be there
+    assert {"ranking", "cuts"} <= set(expected_grid_figures(results))
+
+
+def test_report_is_self_contained_with_every_figure_and_caption(flow):
+    html = (flow / "results" / "report.html").read_text()
+    pngs = sorted((flow / "results" / "figures").rglob("*.png"))
+    assert pngs
+    for png in pngs:
+        rel = png.relative_to(flow).as_posix()
+        assert f'"{rel}": {{' in html, f"{rel} is not in the report"
+    # every image is embedded (data URI), nothing is fetched from elsewhere
+    assert html.count('"data_uri": "data:image/png') == len(pngs)
+    assert not re.search(r'(src|href)="https?://', html)
+    for caption in ("Entropy production by reaction.", "Affinity-rate pairs.", "Map over the grid.",
+                    "Ranking of reactions by entropy production.", "Reduced mechanisms: size against error."):
+        assert caption in html, caption
+    assert CAUTION in html or json.dumps(CAUTION)[1:-1] in html
+
+
+def test_plot_command_writes_the_case_figures(flow, tmp_path):
+    case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
+    out = tmp_path / "figs"
+    done = run_cli("plot", str(case), "--out", str(out), "--top", "4")
+    assert done.returncode == 0, done.stderr
+    for name in expected_case_figures(case):
+        assert_image(out / f"{name}.png", figures.SIZE)
+        assert f"wrote {out / name}.png" in done.stdout
+
+
+@pytest.mark.parametrize("make", ["summary", "text", "missing"])
+def test_plot_command_refuses_what_is_not_a_case_file(flow, tmp_path, make):
+    if make == "summary":
+        target = flow / "results" / "summary.nc"
+    elif make == "text":
+        target = tmp_path / "notes.nc"
+        target.write_text("not netCDF at all\n")
+    else:
+        target = tmp_path / "absent.nc"
+    out = tmp_path / "never"
+    done = run_cli("plot", str(target), "--out", str(out))
+    assert done.returncode == 2
+    lines = done.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("sigmagrid: error: FILE: "), done.stderr
+    assert "Traceback" not in done.stderr
+    assert not out.exists()
+    if make == "summary":
+        assert "plot-grid" in lines[0]
+
+
+def test_plot_command_refuses_a_bad_top(flow, tmp_path):
+    case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
+    done = run_cli("plot", str(case), "--out", str(tmp_path / "x"), "--top", "0")
+    assert done.returncode == 2 and done.stderr.startswith("sigmagrid: error: --top: ")
+    assert not (tmp_path / "x").exists()
+
+
+def test_samples_follow_the_exact_mass_action_curve(flow):
+    # What the affinity-rate figure draws: for mass action with detailed balance r-/r+ = exp(-x),
+    # so q = r+ (1 - exp(-x)) (de Donder; DESIGN section 2). The stored samples keep 4-5
+    # significant digits (store.SIGNIFICANT_DIGITS), which limits the agreement to about 1e-4.
+    case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
+    with xr.open_dataset(case) as ds:
+        x = store.disequilibrium(ds).values.astype(float)
+        q = ds["net_rate"].values.astype(float)
+        rf = ds["forward_rate"].values.astype(float)
+        reversible = ds["reversible"].values.astype(bool)
+    use = np.isfinite(x) & (np.abs(x) > 1e-6) & (rf > 1e-30) & reversible[None, :]
+    exact = rf[use] * -np.expm1(-x[use])
+    rel = np.abs(q[use] - exact) / np.abs(exact)
+    assert use.sum() > 100 and np.max(rel) < 1e-3, np.max(rel)
+
+
+def test_onsager_rate_is_the_one_way_rate_at_equilibrium(h2o2):
+    # Cantera as the reference: at equilibrium forward and reverse rates of progress agree, and
+    # the figure's r_eq = sqrt(r+ r-) must be that common one-way rate.
+    gas, _ = h2o2
+    gas.TPX = 1500.0, 101325.0, "H2:2, O2:1, N2:3.76"
+    gas.equilibrate("UV")
+    rf, rr = gas.forward_rates_of_progress, gas.reverse_rates_of_progress
+    ds = xr.Dataset({"forward_rate": (("time", "reaction"), rf[None, :]),
+                     "reverse_rate": (("time", "reaction"), rr[None, :])})
+    r_eq = figures.equilibrium_one_way_rate(ds)
+    big = rf > 1e-12 * rf.max()
+    assert np.allclose(r_eq[big], rf[big], rtol=1e-6)
+
+
+def test_subset_of_cases_spreads_over_the_grid():
+    raw = dict(TINY, reactors=["isolated", "constant-pressure"],
+               feed={"fuel": "H2:1", "oxidizer": "O2:1, N2:3.76", "equivalence_ratio": [0.5, 1.0, 2.0]},
+               temperature=[1000.0, 1200.0])
+    cases = grid_mod.expand(config_mod.validate(raw)).cases
+    assert len(cases) == 24
+    ordered = figures.select_cases(cases, "all")
+    five = figures.select_cases(cases, 5)
+    assert len(five) == 5 and five[0] == ordered[0] and five[-1] == ordered[-1]
+    assert {c.reactor for c in five} == {"isolated", "constant-pressure"}
+    assert figures.select_cases(cases, 0) == []
+    assert figures.select_cases(cases, 100) == ordered
+    by_label = figures.select_cases(cases, [ordered[3].label, ordered[7].case_id])
+    assert by_label == [ordered[3], ordered[7]]
+    with pytest.raises(InputError) as err:
+        figures.select_cases(cases, [ordered[0].label, "no-such-case"])
+    assert err.value.field == "figures.cases[1]"
+
+
+def test_bad_figures_config_is_one_line(workdir):
+    config = dict(TINY, figures={"cases": "several"})
+    (workdir / "config" / "config.yaml").write_text(yaml.safe_dump(config))
+    done = snakemake(workdir, "-n")
+    assert done.returncode != 0
+    assert "sigmagrid: error: figures.cases: 'several' is not allowed" in done.stderr
+    assert "Traceback" not in done.stderr
+
+
+def test_palette_is_okabe_ito():
+    # Okabe and Ito, "Color Universal Design" (2008), the published hex values (from memory)
+    published = {"#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7"}
+    assert set(plotstyle.SERIES) == published
+    assert "#F0E442" not in plotstyle.LINE_SERIES  # yellow is too faint for lines on white
+
+
+def test_labels_carry_units_and_readable_equations():
+    assert plotstyle.axis_label("net rate", "mol m-3 s-1") == "net rate [mol m⁻³ s⁻¹]"
+    assert plotstyle.axis_label("entropy", "J K-1") == "entropy [J K⁻¹]"
+    assert plotstyle.equation_label("2 OH (+M) <=> H2O2 (+M)", 21) == "R22  2 OH (+M) ⇌ H₂O₂ (+M)"
+    assert plotstyle.equation_label("H + O2 => O + OH", 0, duplicate=True) == "R1  H + O₂ → O + OH  (dup.)"
