@@ -102,6 +102,24 @@ class SeaSettings:
     trace_level: float = 1e-14
     time_factor: float = 1e3
 
+    @classmethod
+    def from_mapping(cls, mapping: dict | None) -> "SeaSettings":
+        """Settings from a config section (keys as the field names, ``-`` or ``_``); checked.
+
+        Raises ``ValueError`` naming an unknown key.
+        """
+        mapping = dict(mapping or {})
+        fields = cls.__dataclass_fields__
+        kwargs = {}
+        for key, value in mapping.items():
+            name = key.replace("-", "_")
+            if name not in fields:
+                raise ValueError(f"sea.{key}: unknown setting; allowed: {sorted(fields)}")
+            kwargs[name] = tuple(value) if name == "metrics" else value
+        settings = cls(**kwargs)
+        settings.check()
+        return settings
+
     def check(self) -> None:
         """Raise ``ValueError`` naming the bad field."""
         bad = [m for m in self.metrics if m not in METRICS]
@@ -662,6 +680,8 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
         e_err = max(e_err, float(np.max(np.abs(elements @ n - target) / e_scale)))
         u_err = max(u_err, abs(system.held_energy() - u0) / max(abs(u0), 1e-300))
         phi = system.potential()
+        if system.reactor == "isothermal":
+            u_err = np.nan  # nothing energetic is held fixed at (T, P)
         if i > 0 and np.isfinite(phi_grid_prev):
             grid_drop = max(grid_drop, (phi_grid_prev - phi) / drive)
         phi_grid_prev = phi
@@ -804,6 +824,9 @@ def compare(gas: ct.Solution, info: MechanismInfo, relaxation, sample_index, set
         return _compare(gas, info, relaxation, sample_index, settings)
     except _Degenerate as why:
         return _empty(gas, relaxation, sample_index, settings, str(why))
+    except Exception as err:  # recorded with the case, never raised into the grid run
+        detail = str(err).splitlines()[0][:300] if str(err) else ""
+        return _empty(gas, relaxation, sample_index, settings, f"SEA comparison failed: {type(err).__name__}: {detail}")
 
 
 class _Degenerate(Exception):
