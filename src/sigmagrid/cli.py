@@ -120,6 +120,18 @@ def cmd_show(args) -> int:
     return 0
 
 
+def cmd_estimate(args) -> int:
+    from . import cost
+
+    if args.sample < 1 or args.cores < 1:
+        raise InputError("--sample" if args.sample < 1 else "--cores", "must be a whole number >= 1")
+    config = _load_config(args.config)
+    result = cost.estimate(config, n_sample=args.sample, cores=args.cores,
+                           report=lambda line: print(line, file=sys.stderr, flush=True))
+    print(cost.format_estimate(result))
+    return 0
+
+
 def cmd_bench(args) -> int:
     from . import bench
 
@@ -164,6 +176,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--max-time", type=float, default=None, help="s (default 10)")
     p.add_argument("--max-samples", type=int, default=None, help="stored samples (default 500)")
     p.set_defaults(func=cmd_case)
+
+    p = sub.add_parser("estimate", help="estimate a grid's time and disk from a few sample cases")
+    p.add_argument("config")
+    p.add_argument("--sample", type=int, default=4, help="cases to run as a sample (default 4)")
+    p.add_argument("--cores", type=int, default=2, help="cores the grid will run on (default 2)")
+    p.set_defaults(func=cmd_estimate)
 
     p = sub.add_parser("bench", help="measure the pipeline against bare Cantera (prints figures)")
     p.add_argument("--quick", action="store_true", help="under a minute instead of under 15 minutes")

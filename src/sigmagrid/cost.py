@@ -1,0 +1,100 @@
+"""What a grid will cost, from its config, before launching it.
+
+A few cases spread over the grid (the lowest and highest initial temperature and pressure among
+them, since ignition delay, and so solver work, varies most along those axes) are run in a
+temporary folder; their time and file size are scaled to the whole grid. The estimate is only as
+good as the sample: grids that cross an ignition limit mix cheap and expensive cases.
+"""
+
+from __future__ import annotations
+
+import statistics
+import tempfile
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+from . import config as config_mod, grid as grid_mod, mechanism, runner
+
+#: Start-up of one Snakemake job (interpreter, imports, grid expansion), s; measured on the
+#: 2-core development machine with gri30.yaml (see README, cost model).
+JOB_START_SECONDS = 1.5
+
+
+@dataclass(frozen=True)
+class Estimate:
+    n_cases: int
+    n_species: int
+    n_reactions: int
+    sample_labels: tuple[str, ...]
+    seconds_per_case: tuple[float, ...]
+    bytes_per_case: float
+    cores: int
+    cases_per_job: int
+
+    @property
+    def cpu_seconds(self) -> float:
+        n_jobs = -(-self.n_cases // self.cases_per_job)
+        return statistics.mean(self.seconds_per_case) * self.n_cases + n_jobs * JOB_START_SECONDS
+
+    @property
+    def wall_seconds(self) -> float:
+        return self.cpu_seconds / self.cores
+
+    @property
+    def disk_bytes(self) -> float:
+        return self.bytes_per_case * self.n_cases
+
+
+def sample_cases(cases: list[grid_mod.Case], n: int) -> list[grid_mod.Case]:
+    """Up to ``n`` cases: the extremes of temperature and pressure first, then spread by id."""
+    if n >= len(cases):
+        return list(cases)
+    chosen: list[grid_mod.Case] = []
+    for key in (lambda c: c.temperature, lambda c: -c.temperature, lambda c: c.pressure, lambda c: -c.pressure):
+        pick = min(cases, key=key)
+        if pick not in chosen:
+            chosen.append(pick)
+    ordered = sorted(cases, key=lambda c: c.case_id)
+    step = max(1, len(ordered) // max(1, n))
+    for case in ordered[::step]:
+        if len(chosen) >= n:
+            break
+        if case not in chosen:
+            chosen.append(case)
+    return chosen[:n]
+
+
+def estimate(config: dict, n_sample: int = 4, cores: int = 2, report=lambda s: None) -> Estimate:
+    """Run ``n_sample`` cases of a validated config and scale them to the grid."""
+    grid = grid_mod.expand(config)
+    path = mechanism.resolve(config["mechanism"])
+    gas = mechanism.load(path)
+    info = mechanism.describe(gas)
+    settings = runner.RunSettings.from_config(config)
+    meta = runner.provenance(path, grid.mechanism_sha256, config_mod.config_hash(config))
+    sample = sample_cases(list(grid.cases), n_sample)
+    seconds, sizes = [], []
+    with tempfile.TemporaryDirectory() as tmp:
+        for k, case in enumerate(sample, 1):
+            target = Path(tmp) / f"{case.case_id}.nc"
+            started = time.perf_counter()
+            runner.run_case_to_file(case, gas, info, settings, meta, target)
+            seconds.append(time.perf_counter() - started)
+            sizes.append(target.stat().st_size)
+            report(f"[{k}/{len(sample)}] {case.label}: {seconds[-1]:.2f} s, {sizes[-1] / 1e6:.2f} MB")
+    return Estimate(n_cases=len(grid.cases), n_species=gas.n_species, n_reactions=gas.n_reactions,
+                    sample_labels=tuple(c.label for c in sample), seconds_per_case=tuple(seconds),
+                    bytes_per_case=statistics.mean(sizes), cores=cores,
+                    cases_per_job=int(config["batch"]["cases_per_job"]))
+
+
+def format_estimate(e: Estimate) -> str:
+    return "\n".join([
+        f"grid: {e.n_cases} cases; mechanism {e.n_species} species, {e.n_reactions} reactions",
+        f"sampled {len(e.seconds_per_case)} cases: {min(e.seconds_per_case):.2f} to "
+        f"{max(e.seconds_per_case):.2f} s per case (mean {statistics.mean(e.seconds_per_case):.2f} s)",
+        f"estimated CPU time   {e.cpu_seconds / 60:10.1f} min",
+        f"estimated wall time  {e.wall_seconds / 60:10.1f} min on {e.cores} cores",
+        f"estimated disk       {e.disk_bytes / 1e9:10.3f} GB ({e.bytes_per_case / 1e6:.2f} MB per case)",
+    ])
