@@ -45,7 +45,6 @@ import numpy as np
 import xarray as xr
 from scipy import sparse
 from scipy.integrate import BDF
-from scipy.optimize import brentq
 
 from .mechanism import MechanismInfo
 from .units import GAS_CONSTANT, KMOL, PER_KMOL
@@ -667,15 +666,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
             system.state(z0)
             T = system.temperature
         else:
-            a, b = ts_a[k - 1], ts_a[k]
-            fa = lam_at(a, k - 1) - level
-            fb = lam_at(b, k - 1) - level
-            if fa * fb > 0 or fa == fb:  # the interpolant's ends moved by the projection: interpolate
-                f = (level - lams[k - 1]) / (lams[k] - lams[k - 1]) if lams[k] != lams[k - 1] else 1.0
-                t = a + min(max(f, 0.0), 1.0) * (b - a)
-            else:
-                t = brentq(lambda s: lam_at(s, k - 1) - level, a, b, xtol=1e-14 * max(b, 1e-300), rtol=1e-12,
-                           maxiter=60)
+            t = _level_time(lambda s: lam_at(s, k - 1), ts_a[k - 1], ts_a[k], lams[k - 1], lams[k], level)
             n, T, _ = project_state(dens[k - 1](t))
         e_err = max(e_err, float(np.max(np.abs(elements @ n - target) / e_scale)))
         u_err = max(u_err, abs(system.held_energy() - u0) / max(abs(u0), 1e-300))
@@ -689,6 +680,35 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
         xs[i] = n / n.sum()
     return _Path(status, reason, times, temps, xs, e_err, raw_err, u_err, max(worst_drop, grid_drop, 0.0), steps,
                  _time.perf_counter() - started)
+
+
+def _level_time(lam_at, a, b, la, lb, level, tol=1e-10, max_iter=8):
+    """Time in [a, b] where the progress reaches ``level`` (Illinois regula falsi on the dense output).
+
+    ``la``, ``lb`` are the progress at the step ends; lambda is smooth and monotone inside a step,
+    so a few iterations reach |lambda - level| < tol.
+    """
+    fa, fb = la - level, lb - level
+    if fb == fa or fa * fb > 0:
+        return b if abs(fb) <= abs(fa) else a
+    side = 0
+    t = b
+    for _ in range(max_iter):
+        t = b - fb * (b - a) / (fb - fa)
+        ft = lam_at(t) - level
+        if abs(ft) <= tol:
+            break
+        if ft * fb > 0:
+            b, fb = t, ft
+            if side == -1:
+                fa *= 0.5
+            side = -1
+        else:
+            a, fa = t, ft
+            if side == 1:
+                fb *= 0.5
+            side = 1
+    return t
 
 
 # --------------------------------------------------------------------------------------------
