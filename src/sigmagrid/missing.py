@@ -21,18 +21,14 @@ def _failed(r) -> str:
 
 
 def _ignition(r) -> str:
-    if r.reactor == "isothermal":
-        return "not applicable: the isothermal reactor holds the temperature fixed"
     if r.time.size < 3:
-        return f"only {r.time.size} state(s) computed" if r.status != "failed" else _failed(r)
+        return f"only {r.time.size} state(s) computed"
     rise = float(np.nanmax(r.temperature) - r.temperature[0])
     return (f"no ignition: temperature rose by {rise:.3g} K within {r.time[-1]:.3g} s, less than "
             f"stop.ignition_rise = {r.ignition_rise:g} K")
 
 
 def _balance(r) -> str:
-    if r.status == "failed" and not np.isfinite(r.potential).all():
-        return _failed(r)
     if r.at_equilibrium_start:
         return "initial state is at equilibrium: no entropy change to compare with"
     return (f"entropy change over the {r.time[-1]:.3g} s computed is negligible "
@@ -40,7 +36,7 @@ def _balance(r) -> str:
 
 
 def _progress_time(r, level: float) -> str:
-    if r.status == "failed" and r.equilibrium is None:
+    if r.status == "failed":
         return _failed(r)
     if r.at_equilibrium_start:
         return "progress undefined: the initial state is already at equilibrium"
@@ -61,19 +57,19 @@ def reasons(r, values: dict[str, float], progress_times: dict[float, float]) -> 
     for name, value in values.items():
         if value is not None and math.isfinite(value):
             continue
-        if name == "ignition_delay":
+        if name in ("ignition_delay", "energy_drift") and r.reactor == "isothermal":
+            why = ("not applicable: the isothermal reactor holds the temperature fixed" if name == "ignition_delay"
+                   else "not applicable: the isothermal reactor holds no energy fixed")
+        elif name == "closed_vessel_pressure_ratio" and r.reactor != "isolated":
+            why = "not applicable: defined for the isolated (closed-vessel) reactor only"
+        elif r.status == "failed":
+            why = _failed(r)
+        elif name == "ignition_delay":
             why = _ignition(r)
         elif name == "balance_residual":
             why = _balance(r)
         elif name == "energy_drift":
-            why = ("not applicable: the isothermal reactor holds no energy fixed" if r.reactor == "isothermal"
-                   else _failed(r) if r.status == "failed" else "the held energy is zero: a relative drift is undefined")
-        elif name == "closed_vessel_pressure_ratio" and r.reactor != "isolated":
-            why = "not applicable: defined for the isolated (closed-vessel) reactor only"
-        elif name.startswith("equilibrium_") and r.equilibrium is None:
-            why = _failed(r)
-        elif r.status == "failed":
-            why = _failed(r)
+            why = "the held energy is zero: a relative drift is undefined"
         elif name in ("negative_entropy_share", "worst_reversible_ratio", "worst_duplicate_group_ratio") \
                 and r.audit is None:
             why = "no entropy-production audit: nothing was integrated"

@@ -351,6 +351,11 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
     if not np.isfinite(data["progress"][1]).all():
         data["progress"][2]["comment"] = ("missing: progress is undefined when the initial state is at "
                                           "equilibrium" if r.at_equilibrium_start else "missing: case failed")
+    for name, (_, values, var_attrs) in data.items():
+        values = np.asarray(values)
+        if values.dtype.kind == "f" and "comment" not in var_attrs and not np.isfinite(values).all():
+            var_attrs["comment"] = (f"missing: non-finite values where the computation broke down "
+                                    f"(case {r.status}{': ' + r.reason[:200] if r.reason else ''})")
     notes = [*getattr(info, "notes", ()), *getattr(r, "notes", ())]
     coords = {
         # Elapsed time in plain seconds: a CF reference date ("s since ...") would make every
