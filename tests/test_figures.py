@@ -240,3 +240,49 @@ def test_labels_carry_units_and_readable_equations():
     assert plotstyle.axis_label("entropy", "J K-1") == "entropy [J K⁻¹]"
     assert plotstyle.equation_label("2 OH (+M) <=> H2O2 (+M)", 21) == "R22  2 OH (+M) ⇌ H₂O₂ (+M)"
     assert plotstyle.equation_label("H + O2 => O + OH", 0, duplicate=True) == "R1  H + O₂ → O + OH  (dup.)"
+
+
+@pytest.fixture(scope="module")
+def sea_case_file(tmp_path_factory, h2o2):
+    """A case file with the SEA variables: from the runner once it writes them, else the case
+    file and sea.compare's Dataset joined here (the SEA axis renamed off the sample progress)."""
+    from sigmagrid import mechanism, runner, sea
+    from sigmagrid.reactors import relax
+
+    gas, info = h2o2
+    raw = dict(TINY, reactors=["constant-pressure"], pressure=[101325.0])
+    config = config_mod.validate(raw)
+    case = grid_mod.expand(config).cases[0]
+    settings = runner.RunSettings.from_config(config)
+    meta = runner.provenance(mechanism.resolve("h2o2.yaml"), "test")
+    ds = runner.run_case(case, gas, info, settings, meta)
+    if "sea_time" not in ds:
+        rel = relax(gas, info, case.reactor, case.temperature, case.pressure, case.mole_fractions(), settings.relax)
+        idx = store.choose_samples(rel.time, rel.progress, rel.temperature, settings.max_samples)
+        assert idx.size == ds.sizes["time"]
+        extra = sea.compare(gas, info, rel, idx)
+        extra = extra.rename({"progress": "sea_progress"}).drop_vars(["reaction", "species", "time"])
+        ds = xr.merge([ds, extra.assign_coords(time=ds["time"])], compat="override")
+    path = tmp_path_factory.mktemp("sea") / f"{case.case_id}.nc"
+    store.write_atomic(ds, path)
+    return path
+
+
+def test_sea_figures_from_a_case_with_the_comparison(sea_case_file, tmp_path):
+    written = figures.plot_case(sea_case_file, tmp_path, log=lambda line: None)
+    assert [p.stem for p in written] == list(figures.CASE_FIGURES)
+    for path in written:
+        assert_image(path, figures.SIZE)
+
+
+def test_sea_figures_are_skipped_with_a_note_without_the_comparison(flow, tmp_path):
+    case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
+    with xr.open_dataset(case) as ds:
+        plain = ds.drop_vars([v for v in ds.variables if "metric" in ds[v].dims or v.startswith("sea_")]).load()
+    path = tmp_path / "plain.nc"
+    store.write_atomic(plain, path)
+    notes = []
+    written = figures.plot_case(path, tmp_path / "out", log=notes.append)
+    assert [p.stem for p in written] == ["entropy_production", "affinity_rate"]
+    assert any("sea_paths skipped: no steepest-entropy-ascent comparison" in n for n in notes), notes
+    assert any("alignment skipped" in n for n in notes), notes
