@@ -324,3 +324,23 @@ def test_gri30_hydrogen_case_drops_the_carbon_chemistry(tmp_path):
     # the entropy produced is a trapezoid integral over the solver's steps, accurate to about its
     # balance residual (~5e-6 here); another step sequence moves it within that
     assert row["entropy_produced_error_max [1]"] < 2e-5
+
+
+def test_validation_subset_and_a_cut_without_reactions(reduced, tmp_path):
+    # a subset chosen by case coordinates; the 0.99 cut of the fixture keeps no reaction at all
+    config, results, _ = reduced
+    with xr.open_dataset(results / "summary.nc") as s:
+        summary = s.load()
+    sub = dict(config, reduction=dict(config["reduction"], validation_cases={
+        "reactor": "isolated", "equivalence_ratio": {"min": 1.0}}))
+    v = rank.assess_cut(sub, results / "reduced" / "local-0.yaml", summary, tmp_path / "cases", "local-0",
+                        report=lambda s: None)
+    assert v.sizes["case"] == 2 and set(v["reactor"].values) == {"isolated"}
+    assert (v["equivalence_ratio"].values > 1).all() and v["cut_failed"].sum() == 0
+    empty = ct.Solution(str(results / "reduced" / "local-0.99.yaml"))
+    assert empty.n_reactions == 0  # no reaction makes 99 % of the entropy production anywhere
+    v = rank.assess_cut(sub, results / "reduced" / "local-0.99.yaml", summary, tmp_path / "none",
+                        "local-0.99", report=lambda s: None)
+    assert v["cut_failed"].values.all() and "no reactions" in v.attrs["load_error"]
+    row = pd.read_csv(results / "reduction.csv").set_index("cut").loc["local-0.99"]
+    assert not row["within_tolerances"] and isinstance(row["note"], str) and row["note"]

@@ -216,6 +216,8 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
                      for j in range(nr)], dtype=str)
 
     def var(dims, values, units, long_name, **extra):
+        if np.asarray(values).dtype.kind in "US":  # text: CF gives it no units
+            return (dims, values, {"long_name": long_name, **extra})
         return (dims, values, {"units": units, "long_name": long_name, **extra})
 
     group_score = np.stack([g_loc_max[column], g_int_max[column], g_int_mean[column]])
@@ -651,6 +653,11 @@ def summarize_cuts(config: dict, ranking: xr.Dataset, cut_dir: str | Path,
                 ok &= bool(e.size == 0 or largest <= tol[k])
             row["within_tolerances"] = bool(ok and not failed.any() and row["species [1]"] >= 0
                                             and not v.attrs.get("load_error"))
+            if v.attrs.get("load_error"):
+                row["note"] = str(v.attrs["load_error"])
+            elif failed.any():
+                row["note"] = f"{int(failed.sum())} case(s) fail on the cut: " + "; ".join(
+                    sorted(set(v["cut_reason"].values[failed].astype(str))))[:300]
             per_case[name] = v
         rows.append(row)
     table = pd.DataFrame(rows)
