@@ -205,12 +205,13 @@ reactions:
 """
 
 
-@pytest.fixture(scope="module")
-def isomer():
-    """A <=> B with equal enthalpies: T stays fixed in an isolated vessel, K = exp(Delta s0 / R)."""
+@pytest.fixture(scope="module", params=["isolated", "constant-pressure", "isothermal"])
+def isomer(request):
+    """A <=> B with equal enthalpies and no change of moles: T and V stay fixed in every reactor,
+    K = exp(Delta s0 / R)."""
     gas = ct.Solution(yaml=ISOMER_YAML)
     info = mechanism.describe(gas)
-    rel = reactors.relax(gas, info, "isolated", 900.0, ct.one_atm, "A:1", FAST)
+    rel = reactors.relax(gas, info, request.param, 900.0, ct.one_atm, "A:1", FAST)
     ds = sea.compare(gas, info, rel, _samples(rel, 20),
                      sea.SeaSettings(metrics=("log-mean", "onsager"), metric_rtol=1e-8, metric_atol=1e-10))
     return gas, rel, ds
@@ -246,6 +247,42 @@ def test_isomerisation_closed_forms(isomer):
     # at equilibrium both metrics have the single relaxation rate kf + kr
     assert float(ds.relaxation_rates_sea[0]) == pytest.approx(kf + kr, rel=1e-6)
     assert float(ds.relaxation_rates_kinetics[0]) == pytest.approx(kf + kr, rel=1e-6)
+
+
+def test_fisher_rao_angle_identity():
+    """Stable form 4 arcsin(|sqrt x - sqrt y|/2) equals 2 arccos(sum sqrt(x y)) (Amari and Nagaoka 2000)."""
+    rng = np.random.default_rng(7)
+    x, y = rng.dirichlet(np.ones(6), 50), rng.dirichlet(np.ones(6), 50)
+    ref = 2 * np.arccos(np.clip(np.sqrt(x * y).sum(axis=1), -1, 1))
+    np.testing.assert_allclose(sea.fisher_rao_angle(x, y), ref, rtol=1e-10, atol=1e-12)
+    assert sea.fisher_rao_angle(np.array([1.0, 0.0]), np.array([0.0, 1.0])) == pytest.approx(np.pi)
+    assert sea.fisher_rao_angle(x[0], x[0]) == 0.0
+
+
+def test_settings_from_mapping():
+    s = sea.SeaSettings.from_mapping({"metrics": ["onsager"], "start-progress": 0.05, "weight": "time"})
+    assert s.metrics == ("onsager",) and s.start_progress == 0.05 and s.weight == "time"
+    with pytest.raises(ValueError, match="sea.colour"):
+        sea.SeaSettings.from_mapping({"colour": 1})
+    with pytest.raises(ValueError, match="weight"):
+        sea.SeaSettings.from_mapping({"weight": "mass"})
+
+
+def test_other_weights_change_the_fit(h2o2_gas):
+    """Uniform-in-time weighting differs from entropy weighting; progress weighting equals it.
+
+    lambda = (Phi - Phi_0)/(Phi_eq - Phi_0) is affine in the potential, so equal progress steps are
+    equal entropy production (DESIGN section 4): the two weights agree up to a constant factor.
+    """
+    gas, info = h2o2_gas
+    rel = reactors.relax(gas, info, "constant-pressure", 1100.0, ct.one_atm, "H2:2, O2:1, N2:3.76", FAST)
+    fits = {}
+    for weight in sea.WEIGHTS:
+        ds = sea.compare(gas, info, rel, [0], sea.SeaSettings(metrics=("fitted-scalar",), weight=weight))
+        assert ds.attrs["sea_weight"] == weight
+        fits[weight] = float(ds.mobility.values[0, 0])
+    assert fits["progress"] == pytest.approx(fits["entropy"], rel=1e-9)
+    assert abs(fits["time"] - fits["entropy"]) > 0.1 * fits["entropy"]
 
 
 def test_start_at_equilibrium_is_nan_not_crash(h2o2_gas):

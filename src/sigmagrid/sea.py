@@ -65,7 +65,8 @@ class SeaSettings:
     metrics : subset of :data:`METRICS`.
     start_progress : 1, progress lambda_0 of the observed state the SEA paths start from.
     weight : weight of the fits, ``entropy`` (entropy produced per interval), ``time`` (uniform in
-        time) or ``progress`` (uniform in progress).
+        time) or ``progress`` (uniform in progress; since the progress is affine in the potential
+        this is the entropy weight again, kept as a name users look for).
     n_progress : size of the shared progress grid, from ``start_progress`` to ``end_progress``,
         Chebyshev-spaced (dense at both ends).
     end_progress : 1, last grid point (the relaxation only approaches lambda = 1).
