@@ -206,3 +206,12 @@ def config_hash(config: dict) -> str:
     config = {k: v for k, v in config.items() if k != "figures"}
     text = json.dumps(config, sort_keys=True, separators=(",", ":"), default=str)
     return hashlib.sha256(text.encode()).hexdigest()
+
+
+#: The config keys that change the result of a case (the grid axes change which cases exist).
+CASE_SETTINGS = ("stop", "solver", "reactor_volume", "storage")
+
+
+def settings_hash(config: dict) -> str:
+    """sha256 of the settings that shape each case's result; equal hashes, reusable case files."""
+    return config_hash({key: config.get(key) for key in CASE_SETTINGS})

@@ -55,6 +55,7 @@ def describe_case(path, top: int = 8) -> str:
     lines += ["  provenance:",
               f"    mechanism {a.get('mechanism', '?')} sha256 {a.get('mechanism_sha256', '?')}",
               f"    config sha256 {a.get('config_sha256', '') or '(none)'}",
+              f"    case settings sha256 {a.get('settings_sha256', '') or '(none)'}",
               f"    sigmagrid {a.get('sigmagrid_version', '?')}, Cantera {a.get('cantera_version', '?')}, "
               f"Python {a.get('python_version', '?')}, numpy {a.get('numpy_version', '?')}"]
     return "\n".join(lines)

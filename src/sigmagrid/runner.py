@@ -123,13 +123,14 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
     info = mechanism.describe(gas)
     settings = RunSettings.from_config(config)
     meta = provenance(path, sha, config_mod.config_hash(config), config.get("study", ""))
+    meta["settings_sha256"] = config_mod.settings_hash(config)
     for note in info.notes:
         report(f"note: {note}")
     written = []
     for n, case in enumerate(cases, 1):
         target = out_dir / f"{case.case_id}.nc"
         store.remove_stale_temporaries(target)  # a killed earlier run may have left one
-        if skip_existing and target.is_file():
+        if skip_existing and _reusable(target, meta["settings_sha256"]):
             written.append(target)
             continue
         started = time.perf_counter()
@@ -139,6 +140,21 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
         report(f"[{n}/{len(cases)}] {case.label}: {ds.attrs['status']} in {time.perf_counter() - started:.2f} s, "
                f"balance residual {float(ds['balance_residual']):.1e}{why}")
     return written
+
+
+def _reusable(target: Path, settings_sha256: str) -> bool:
+    """A finished case file made with the same case settings: reruns skip it, others redo it.
+
+    Case ids follow the physics and the mechanism only; the stop, solver and storage settings
+    are in ``settings_sha256`` (see :func:`sigmagrid.config.settings_hash`).
+    """
+    if not target.is_file():
+        return False
+    try:
+        with xr.open_dataset(target) as ds:
+            return ds.attrs.get("settings_sha256") == settings_sha256
+    except Exception:  # noqa: BLE001 - damaged: compute it again
+        return False
 
 
 def run_case_to_file(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInfo,
@@ -163,6 +179,7 @@ def run_single(config: dict, case: grid_mod.Case, target: str | Path) -> xr.Data
     path = mechanism.resolve(config["mechanism"])
     gas = mechanism.load(path)
     meta = provenance(path, mechanism.file_sha256(path), config_mod.config_hash(config), config.get("study", ""))
+    meta["settings_sha256"] = config_mod.settings_hash(config)
     return run_case_to_file(case, gas, mechanism.describe(gas), RunSettings.from_config(config), meta, target)
 
 

@@ -175,7 +175,8 @@ def write_text_atomic(text: str, path: str | Path) -> Path:
 
 
 #: Case-file attributes repeated in every row of cases.csv, so the table alone says how it was made.
-PROVENANCE_COLUMNS = ("mechanism", "mechanism_sha256", "config_sha256", "sigmagrid_version", "cantera_version")
+PROVENANCE_COLUMNS = ("mechanism", "mechanism_sha256", "config_sha256", "settings_sha256", "sigmagrid_version",
+                      "cantera_version")
 
 CASE_COORDS = ("case_id", "label", "reactor", "composition_name", "equivalence_ratio",
                "initial_temperature", "initial_pressure", "status")

@@ -1,0 +1,457 @@
+"""The entry point: compare an observed relaxation with SEA paths under each metric."""
+
+from __future__ import annotations
+
+import numpy as np
+import cantera as ct
+import xarray as xr
+from scipy import sparse
+
+from ..diagnostics import evaluate
+from ..mechanism import MechanismInfo
+from ..units import KMOL, PER_KMOL
+from .dynamics import _Mobility, _Path, _System, _sea_path
+from .metrics import (alignment, fisher_rao_angle, fit_arrhenius, fit_diagonal, fit_quality, fit_scalar,
+                      log_mean_mobility, path_weights, progress_grid)
+from .settings import N_SLOW_COMPARED, PROGRESS_LEVELS, SeaSettings
+from .spectra import kinetics_spectrum, sea_spectrum
+
+
+def _empty(gas, relaxation, sample_index, settings, reason):
+    """NaN-filled result with the reason in ``sea_status``/``sea_reason`` and a global attribute."""
+    return _assemble(gas, relaxation, sample_index, settings, None, reason)
+
+
+def _mole_fractions(y, mw):
+    n = y / mw
+    return n / n.sum(axis=-1, keepdims=True)
+
+
+def _first_crossing(lam, values, levels):
+    """Linear interpolation of ``values`` (n, ...) at the first sample where lam >= level."""
+    out = np.full((levels.size,) + values.shape[1:], np.nan)
+    for i, level in enumerate(levels):
+        above = np.flatnonzero(lam >= level)
+        if above.size == 0:
+            continue
+        k = int(above[0])
+        if k == 0 or lam[k] == lam[k - 1]:
+            out[i] = values[k]
+            continue
+        f = (level - lam[k - 1]) / (lam[k] - lam[k - 1])
+        out[i] = values[k - 1] + f * (values[k] - values[k - 1])
+    return out
+
+
+def compare(gas: ct.Solution, info: MechanismInfo, relaxation, sample_index, settings: SeaSettings = SeaSettings()
+            ) -> xr.Dataset:
+    """Compare an observed relaxation with steepest-entropy-ascent paths under several metrics.
+
+    Parameters
+    ----------
+    gas : Cantera Solution of the mechanism (its state is overwritten).
+    info : :func:`sigmagrid.mechanism.describe` of the same mechanism.
+    relaxation : :class:`sigmagrid.reactors.Relaxation`, the full-resolution observed path.
+    sample_index : int array, indices of the stored samples in the full-resolution path.
+    settings : :class:`SeaSettings`.
+
+    Returns
+    -------
+    xarray.Dataset on coordinates ``metric``, ``reaction``, ``species``, ``time`` (the stored
+    samples, s), ``progress`` (1), ``mode`` and ``progress_level``; every variable has ``units`` and
+    ``long_name``. Never raises for a numerical failure: ``sea_status``/``sea_reason`` say what
+    happened per metric, and degenerate cases (start at equilibrium, a path too short) come back
+    NaN-filled with the reason.
+    """
+    settings.check()
+    sample_index = np.asarray(sample_index, dtype=int)
+    try:
+        return _compare(gas, info, relaxation, sample_index, settings)
+    except _Degenerate as why:
+        return _empty(gas, relaxation, sample_index, settings, str(why))
+    except Exception as err:  # recorded with the case, never raised into the grid run
+        detail = str(err).splitlines()[0][:300] if str(err) else ""
+        return _empty(gas, relaxation, sample_index, settings, f"SEA comparison failed: {type(err).__name__}: {detail}")
+
+
+class _Degenerate(Exception):
+    pass
+
+
+def _compare(gas, info, rel, sample_index, settings):
+    if rel.reactor not in ("isolated", "constant-pressure", "isothermal"):
+        raise _Degenerate(f"reactor type {rel.reactor!r} is not supported by the SEA comparison")
+    if rel.equilibrium is None:
+        raise _Degenerate(f"no equilibrium state (relaxation {rel.status}: {rel.reason})")
+    if rel.at_equilibrium_start:
+        raise _Degenerate("initial state is already at equilibrium: there is no path to compare")
+    lam = rel.progress
+    if rel.time.size < 3 or not np.isfinite(lam).all() or np.nanmax(lam) < settings.start_progress:
+        raise _Degenerate(f"observed path too short for the comparison ({rel.time.size} samples, "
+                          f"largest progress {np.nanmax(lam) if np.isfinite(lam).any() else float('nan'):.3g}; "
+                          f"relaxation {rel.status}{': ' + rel.reason if rel.reason else ''})")
+
+    nr, ns = gas.n_reactions, gas.n_species
+    mw = gas.molecular_weights * PER_KMOL  # kg/mol
+    grid = progress_grid(settings.n_progress, settings.start_progress, settings.end_progress)
+    nu = gas.product_stoich_coeffs - gas.reactant_stoich_coeffs
+    participates = (gas.product_stoich_coeffs + gas.reactant_stoich_coeffs) > 0  # (ns, nr)
+
+    # which species and reactions take part in the SEA dynamics
+    elements = np.array([[gas.n_atoms(k, e) for k in range(ns)] for e in range(gas.n_elements)], float)
+    k_start = max(int(np.searchsorted(lam, settings.start_progress, side="right")) - 1, 0)
+    y_start = np.clip(rel.mass_fractions[k_start], 0.0, None)
+    n_start = rel.mass * y_start / mw  # mol
+    present_elements = elements @ n_start > 1e-12 * (elements @ n_start).sum()
+    formable = ~((elements[~present_elements] > 0).any(axis=0))
+    reactive = np.abs(nu).sum(axis=1) > 0
+    active_mask = formable & reactive
+    involved_ok = ~(participates & ~active_mask[:, None] & reactive[:, None]).any(axis=0)
+    included = involved_ok & (info.reversible | (settings.irreversible == "reversible"))
+    rx = np.flatnonzero(included)
+    active = np.flatnonzero(active_mask)
+    floor = 1e-30 * n_start.sum()
+    n_start[active] = np.maximum(n_start[active], floor)
+
+    # observed path: affinities and rates at full resolution
+
+    st = evaluate(gas, rel.temperature, rel.density, rel.mass_fractions)
+    x_all = st.disequilibrium
+    q_all = st.net_rate.copy()
+    rf_all, rr_all = st.forward_rate, st.reverse_rate
+    present = rel.mass_fractions > 0
+    valid = (sparse.csr_matrix((~present).astype(float)) @ sparse.csc_matrix(participates.astype(float))).toarray() == 0
+    valid &= included[None, :]
+    w = path_weights(settings.weight, rel.time, rel.potential, lam)
+    if not (w > 0).any():
+        raise _Degenerate(f"no {settings.weight} weight on the observed path")
+
+    # equilibrium one-way rates (onsager)
+    eq = rel.equilibrium
+    gas.TPX = eq.temperature, eq.pressure, eq.mole_fractions
+    r_eq = gas.forward_rates_of_progress * KMOL
+    lm_all = log_mean_mobility(rf_all, rr_all, x_all)
+
+    mobility = {}
+    notes = {m: [] for m in settings.metrics}
+    params = {}
+    quality = {}
+    align_full = {}
+    for metric in settings.metrics:
+        if metric == "log-mean":
+            M_path = lm_all
+            mobility[metric] = np.full(nr, np.nan)
+        elif metric == "onsager":
+            M_path = np.broadcast_to(np.where(included, r_eq, np.nan), x_all.shape)
+            mobility[metric] = np.where(included, r_eq, np.nan)
+        elif metric == "fitted-scalar":
+            m = float(_clip_negative(np.array([fit_scalar(x_all, q_all, w, valid)]), np.array([True]), metric,
+                                     notes)[0])
+            mobility[metric] = np.where(included, m, np.nan)
+            M_path = np.broadcast_to(mobility[metric], x_all.shape)
+        elif metric == "fitted-diagonal":
+            m = fit_diagonal(x_all, q_all, w, valid)
+            m = _clip_negative(m, included, metric, notes)
+            mobility[metric] = np.where(included, m, np.nan)
+            M_path = np.broadcast_to(mobility[metric], x_all.shape)
+        else:
+            m_ref, b = fit_arrhenius(x_all, q_all, w, valid, rel.temperature, eq.temperature)
+            m_ref = _clip_negative(m_ref, included, metric, notes)
+            params["m_ref"] = np.where(included, m_ref, np.nan)
+            params["b"] = np.where(included, b, np.nan)
+            mobility[metric] = np.full(nr, np.nan)
+            M_path = params["m_ref"][None, :] * np.exp(np.clip(-np.outer(1.0 / rel.temperature - 1.0 / eq.temperature,
+                                                                         params["b"]), -700, 700))
+        Mc = np.where(included[None, :] & np.isfinite(M_path), M_path, 0.0)
+        quality[metric] = fit_quality(q_all, Mc * x_all, w, valid)
+        # the alignment is taken over the reactions with detailed balance: an irreversible reaction's
+        # observed rate is not of the form M x under any metric (its x q can be negative); its share
+        # of the entropy production is reported separately
+        aligned = included & info.reversible
+        xi = np.where(aligned[None, :], x_all, 0.0)
+        qi = np.where(aligned[None, :], q_all, 0.0)
+        align_full[metric] = alignment(xi, qi, np.where(aligned[None, :], Mc, 0.0))
+
+    # share of |entropy production| by irreversible reactions on the compared part of the path
+    w_t = path_weights("time", rel.time, rel.potential, lam) * (lam >= settings.start_progress)
+    sig = np.abs(x_all * q_all) * w_t[:, None]
+    total_sig = float(sig.sum())
+    irr_share = float(sig[:, ~info.reversible].sum()) / total_sig if total_sig > 0 else float("nan")
+
+    # entropy-production ratio observed / largest at equal cost, along the path (entropy-weighted)
+    # over the compared part of the path (progress >= start_progress), where no species is absent
+    w_s = path_weights("entropy", rel.time, rel.potential, lam)
+    ep_ratio = {}
+    for metric, a in align_full.items():
+        use = (w_s > 0) & (lam >= settings.start_progress)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            largest = np.where(a[use] > 0, w_s[use] / a[use], np.inf)
+        ep_ratio[metric] = float(w_s[use].sum() / largest.sum()) if use.any() else float("nan")
+
+    # observed path on the progress grid
+    x_obs_full = _mole_fractions(np.clip(rel.mass_fractions, 0.0, None), mw)
+    obs_time = _first_crossing(lam, rel.time, grid)
+    obs_temp = _first_crossing(lam, rel.temperature, grid)
+    obs_x = _first_crossing(lam, x_obs_full, grid)
+
+    # SEA paths
+    lam_start = float(lam[k_start])
+    t_start = float(rel.time[k_start])
+    reversible_in = info.reversible[rx]
+    if rel.reactor == "isolated":
+        volume, pressure = float(rel.volume[k_start]), float("nan")
+    else:
+        volume, pressure = float("nan"), float(rel.pressure[k_start])
+    t_scale = max(float(rel.time[-1] - t_start), 1e-12)
+    paths = {}
+    systems = {}
+    phi_eq_sea = None
+    for metric in settings.metrics:
+        if metric == "log-mean":
+            mob = _Mobility("log-mean")
+        elif metric == "fitted-arrhenius":
+            mob = _Mobility("arrhenius", np.nan_to_num(params["m_ref"][rx]), np.nan_to_num(params["b"][rx]),
+                            eq.temperature)
+        else:
+            mob = _Mobility("constant", np.nan_to_num(np.clip(mobility[metric][rx], 0.0, None)))
+        try:
+            system = _System(gas, rel.reactor, rel.mass, n_start, active, rx, reversible_in, volume, pressure,
+                             float(rel.temperature[k_start]), mob, settings.trace_level)
+            systems[metric] = system
+            z0 = system.z_of(n_start)
+            system.state(z0)
+            phi_start = system.potential()
+            if phi_eq_sea is None:
+                phi_eq_sea = _equilibrium_potential(gas, rel.reactor, rel.mass)
+            path = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings, t_scale)
+            level = settings.trace_level
+            while path.status == "failed" and metric != "log-mean" and 0 < level < 1e-8:
+                # a failed constant-metric path is retried with a higher trace level
+                level *= 1e3
+                system.eps = level * system.n_ref
+                retry = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings, t_scale)
+                retry.wall += path.wall
+                retry.reason = (f"retried with trace level {level:.0e} after: {path.reason}"
+                                + (f"; {retry.reason}" if retry.reason else ""))
+                path = retry
+            path.trace_level = level if metric != "log-mean" else float("nan")
+            if notes[metric]:
+                path.reason = "; ".join(notes[metric] + ([path.reason] if path.reason else []))
+            paths[metric] = path
+        except Exception as err:
+            paths[metric] = _Path("failed", f"{type(err).__name__}: {str(err).splitlines()[0][:300] if str(err) else ''}",
+                                  np.full(grid.size, np.nan), np.full(grid.size, np.nan),
+                                  np.full((grid.size, ns), np.nan), np.nan, np.nan, np.nan, np.nan, 0, 0.0)
+
+    # near-equilibrium spectra
+    spectra = {"sea": np.full(settings.n_modes, np.nan), "kinetics": np.full(settings.n_modes, np.nan)}
+    slow_diff = {m: float("nan") for m in settings.metrics}
+    spectrum_reason = ""
+    try:
+        ref_system = next(iter(systems.values())) if systems else None
+        if ref_system is None:
+            raise RuntimeError("no SEA system could be built")
+        gas.TPX = eq.temperature, eq.pressure, eq.mole_fractions
+        n_eq = rel.mass * gas.Y / mw
+        n_eq[active] = np.maximum(n_eq[active], 1e-300)
+        ref_system.temperature = eq.temperature
+        # reuse the constraint at the equilibrium's own energy
+        ref_system.energy0 = ref_system._energy_sum(n_eq) if rel.reactor != "isothermal" else ref_system.energy0
+        m_ons = np.where(included, r_eq, 0.0)[rx]
+        sea_rates = sea_spectrum(ref_system, n_eq, m_ons)
+        rank = sea_rates.size
+        kin_rates = kinetics_spectrum(gas, info, settings.irreversible, rel.reactor, eq.temperature, eq.pressure,
+                                      eq.mole_fractions, eq.volume, rank)
+        k = min(settings.n_modes, rank)
+        spectra["sea"][:k] = sea_rates[:k]
+        spectra["kinetics"][:k] = kin_rates[:k]
+        n_cmp = min(N_SLOW_COMPARED, rank)
+        for metric in settings.metrics:
+            if metric in ("log-mean", "onsager"):
+                r_m = sea_rates  # the log-mean mobility tends to r_eq at equilibrium
+            elif metric == "fitted-arrhenius":
+                r_m = sea_spectrum(ref_system, n_eq, np.nan_to_num(params["m_ref"][rx]))
+            else:
+                r_m = sea_spectrum(ref_system, n_eq, np.nan_to_num(np.clip(mobility[metric][rx], 0, None)))
+            if r_m.size >= n_cmp and n_cmp > 0:
+                slow_diff[metric] = float(np.max(np.abs(r_m[:n_cmp] - kin_rates[:n_cmp]) / kin_rates[:n_cmp]))
+    except Exception as err:
+        spectrum_reason = f"near-equilibrium check failed: {type(err).__name__}: {str(err)[:300]}"
+
+    result = {
+        "grid": grid, "mobility": mobility, "params": params, "quality": quality, "align_full": align_full,
+        "ep_ratio": ep_ratio, "obs_time": obs_time, "obs_temp": obs_temp, "obs_x": obs_x, "paths": paths,
+        "t_start": t_start, "lam_start": lam_start, "spectra": spectra, "slow_diff": slow_diff,
+        "spectrum_reason": spectrum_reason, "included": included, "eq_T": eq.temperature,
+        "irr_share": irr_share,
+    }
+    return _assemble(gas, rel, sample_index, settings, result, "")
+
+
+def _clip_negative(m, included, metric, notes):
+    """Set negative fitted mobilities to zero (a metric must be positive semi-definite) and say so."""
+    bad = included & np.isfinite(m) & (m < 0)
+    if bad.any():
+        notes[metric].append(f"{int(bad.sum())} negative fitted mobilit{'y' if bad.sum() == 1 else 'ies'} "
+                             "(reactions whose x q < 0 on the path, e.g. irreversible ones) set to zero")
+        m = np.where(bad, 0.0, m)
+    return m
+
+
+def _equilibrium_potential(gas, reactor, mass):
+    """Phi at Cantera's equilibrium of the gas's current state with the reactor's pair held fixed, J/K."""
+    pair = {"isolated": "UV", "constant-pressure": "HP", "isothermal": "TP"}[reactor]
+    saved = gas.state
+    try:
+        gas.equilibrate(pair)
+        s = mass * gas.entropy_mass
+        return s - mass * gas.enthalpy_mass / gas.T if reactor == "isothermal" else s
+    finally:
+        gas.state = saved
+
+
+def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
+    metrics = list(settings.metrics)
+    nmet, nr, ns = len(metrics), gas.n_reactions, gas.n_species
+    grid = progress_grid(settings.n_progress, settings.start_progress, settings.end_progress)
+    ng = grid.size
+    times = np.asarray(rel.time)[sample_index] if rel.time.size else np.zeros(0)
+    nt = times.size
+    levels = np.asarray(PROGRESS_LEVELS)
+    nan = np.nan
+
+    def full(*shape):
+        return np.full(shape, nan)
+
+    mob, align, quality = full(nmet, nr), full(nmet, nt), full(nmet)
+    sea_t, sea_T, sea_x = full(nmet, ng), full(nmet, ng), full(nmet, ng, ns)
+    angle, dT = full(nmet, ng), full(nmet, ng)
+    largest, ratio, ep = full(nmet), full(nmet, levels.size), full(nmet)
+    slow, wall, steps, trace = full(nmet), full(nmet), full(nmet), full(nmet)
+    e_err, e_raw, u_err, s_drop = full(nmet), full(nmet), full(nmet), full(nmet)
+    m_ref, b_arr = full(nr), full(nr)
+    obs_t, obs_T = full(ng), full(ng)
+    rates_sea, rates_kin = full(settings.n_modes), full(settings.n_modes)
+    status = np.array(["skipped"] * nmet, dtype=object)
+    reasons = np.array([reason] * nmet, dtype=object)
+    included = np.zeros(nr, dtype=np.int8)
+    attrs_extra = {}
+    irr_share = nan
+    if res is not None:
+        irr_share = res["irr_share"]
+        included = res["included"].astype(np.int8)
+        obs_t, obs_T = res["obs_time"], res["obs_temp"]
+        rates_sea, rates_kin = res["spectra"]["sea"], res["spectra"]["kinetics"]
+        if "m_ref" in res["params"]:
+            m_ref, b_arr = res["params"]["m_ref"], res["params"]["b"]
+        for i, metric in enumerate(metrics):
+            mob[i] = res["mobility"][metric]
+            quality[i] = res["quality"][metric]
+            align[i] = res["align_full"][metric][sample_index]
+            ep[i] = res["ep_ratio"][metric]
+            slow[i] = res["slow_diff"][metric]
+            p = res["paths"][metric]
+            status[i], reasons[i] = p.status, p.reason
+            wall[i], steps[i], trace[i] = p.wall, p.steps, p.trace_level
+            e_err[i], e_raw[i], u_err[i], s_drop[i] = (p.element_error, p.element_drift_unprojected,
+                                                       p.energy_error, p.entropy_decrease)
+            sea_t[i] = res["t_start"] + p.time  # SEA clock starts at the observed start sample
+            sea_T[i] = p.temperature
+            sea_x[i] = p.mole_fractions
+            angle[i] = fisher_rao_angle(p.mole_fractions, res["obs_x"])
+            angle[i][~np.isfinite(p.temperature) | ~np.isfinite(res["obs_temp"])] = nan
+            dT[i] = p.temperature - res["obs_temp"]
+            if np.isfinite(angle[i]).any():
+                largest[i] = np.nanmax(angle[i])
+            for k, level in enumerate(levels):
+                t_sea = _interp_finite(level, grid, sea_t[i])
+                t_o = _interp_finite(level, grid, obs_t)
+                if (t_o - obs_t[0]) > 0:  # both clocks from the first grid level (start_progress)
+                    ratio[i, k] = (t_sea - sea_t[i][0]) / (t_o - obs_t[0])
+        if res["spectrum_reason"]:
+            attrs_extra["near_equilibrium_reason"] = res["spectrum_reason"]
+
+    def var(dims, data, units, long_name, **attrs):
+        return (dims, data, {"units": units, "long_name": long_name, **attrs})
+
+    ds = xr.Dataset(
+        {
+            "mobility": var(("metric", "reaction"), mob, "mol m-3 s-1",
+                            "constant mobility of the steepest-entropy-ascent metric (NaN where not constant)"),
+            "fit_quality": var(("metric",), quality, "1",
+                               "weighted coefficient of determination of q against M x on the observed path"),
+            "alignment": var(("metric", "time"), align, "1",
+                             "cosine of the angle between observed rates and steepest ascent under the metric"),
+            "entropy_production_ratio": var(("metric",), ep, "1",
+                                            "entropy produced on the observed path over the largest at equal cost"),
+            "sea_time": var(("metric", "progress"), sea_t, "s", "time of the steepest-entropy-ascent path"),
+            "sea_temperature": var(("metric", "progress"), sea_T, "K",
+                                   "temperature of the steepest-entropy-ascent path"),
+            "sea_mole_fraction": var(("metric", "progress", "species"), sea_x, "1",
+                                     "mole fractions of the steepest-entropy-ascent path"),
+            "observed_time": var(("progress",), obs_t, "s", "time at which the observed path reaches the progress"),
+            "observed_temperature": var(("progress",), obs_T, "K", "temperature of the observed path"),
+            "path_angle": var(("metric", "progress"), angle, "rad",
+                              "Fisher-Rao angle between observed and steepest-ascent mole fractions"),
+            "temperature_difference": var(("metric", "progress"), dT, "K",
+                                          "steepest-ascent minus observed temperature"),
+            "largest_path_angle": var(("metric",), largest, "rad", "largest Fisher-Rao path angle"),
+            "time_ratio": var(("metric", "progress_level"), ratio, "1",
+                              "steepest-ascent over observed time from the start progress to the level"),
+            "slow_mode_difference": var(("metric",), slow, "1",
+                                        f"largest relative difference of the {N_SLOW_COMPARED} slowest relaxation "
+                                        "rates, metric linearised at equilibrium against the kinetics"),
+            "relaxation_rates_sea": var(("mode",), rates_sea, "s-1",
+                                        "slowest relaxation rates of the onsager steepest-ascent dynamics at equilibrium"),
+            "relaxation_rates_kinetics": var(("mode",), rates_kin, "s-1",
+                                             "slowest relaxation rates of the kinetics (Cantera reactor Jacobian) "
+                                             "at equilibrium"),
+            "arrhenius_reference_mobility": var(("reaction",), m_ref, "mol m-3 s-1",
+                                                "fitted-arrhenius mobility at the reference temperature",
+                                                reference_temperature_K=float(res["eq_T"]) if res else nan),
+            "arrhenius_activation_temperature": var(("reaction",), b_arr, "K",
+                                                    "fitted-arrhenius activation temperature b_j"),
+            "irreversible_entropy_share": var((), irr_share, "1",
+                                              "share of the entropy production of irreversible reactions, "
+                                              "compared part of the observed path (left out of the alignment)"),
+            "sea_reaction_included": var(("reaction",), included, "1",
+                                         "1 where the reaction takes part in the steepest-ascent dynamics"),
+            "sea_status": var(("metric",), status.astype(str), "1", "status of the steepest-ascent path"),
+            "sea_reason": var(("metric",), reasons.astype(str), "1", "why a steepest-ascent path is missing or short"),
+            "sea_wall_time": var(("metric",), wall, "s", "wall time of the steepest-ascent path"),
+            "sea_steps": var(("metric",), steps, "1", "solver steps of the steepest-ascent path"),
+            "sea_trace_level": var(("metric",), trace, "1",
+                                   "amount over total below which the constant mobility was scaled like mass action"),
+            "sea_element_error": var(("metric",), e_err, "1", "largest relative element imbalance on the path"),
+            "sea_element_drift_unprojected": var(("metric",), e_raw, "1",
+                                                 "largest relative element imbalance before projection"),
+            "sea_energy_error": var(("metric",), u_err, "1", "largest relative change of U or H on the path"),
+            "sea_entropy_decrease": var(("metric",), s_drop, "1",
+                                        "largest decrease of the potential between steps over its total rise"),
+        },
+        coords={
+            "metric": ("metric", np.array(metrics, dtype=str)),
+            "reaction": ("reaction", np.array(gas.reaction_equations(), dtype=str)),
+            "species": ("species", np.array(gas.species_names, dtype=str)),
+            "time": ("time", times, {"units": "s", "long_name": "time of the stored samples"}),
+            "progress": ("progress", grid, {"units": "1", "long_name": "entropy progress lambda"}),
+            "mode": ("mode", np.arange(settings.n_modes), {"units": "1", "long_name": "relaxation mode, slowest first"}),
+            "progress_level": ("progress_level", levels, {"units": "1", "long_name": "progress level of the time ratios"}),
+        },
+        attrs={
+            "sea_weight": settings.weight, "sea_start_progress": settings.start_progress,
+            "sea_irreversible": settings.irreversible, "sea_rtol": settings.rtol, "sea_atol": settings.atol,
+            "sea_metric_rtol": settings.metric_rtol, "sea_metric_atol": settings.metric_atol,
+            "sea_trace_level": settings.trace_level, "sea_time_factor": settings.time_factor,
+            "sea_skipped_reason": reason,
+            **attrs_extra,
+        },
+    )
+    return ds
+
+
+def _interp_finite(level, grid, values):
+    ok = np.isfinite(values)
+    if not ok.any() or level < grid[ok][0] or level > grid[ok][-1]:
+        return np.nan
+    return float(np.interp(level, grid[ok], values[ok]))

@@ -1,0 +1,437 @@
+"""The SEA dynamics q = M x in logarithmic amounts, its Jacobian, and one integrated path.
+
+References
+----------
+Hairer, E., Lubich, C. and Wanner, G. (2006), Geometric Numerical Integration, 2nd ed., Springer,
+sec. IV.4 (projection onto invariants after each step).
+Mielke, A. (2011), Nonlinearity 24, 1329 (log-mean mobility = mass action).
+"""
+
+from __future__ import annotations
+
+import time as _time
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import sparse
+from scipy.integrate import BDF
+
+from ..units import GAS_CONSTANT, KMOL, PER_KMOL
+
+_R = GAS_CONSTANT  # J/(mol K)
+
+
+@dataclass
+class _Mobility:
+    kind: str  # "log-mean", "constant", "arrhenius"
+    m: np.ndarray | None = None  # (nr_in,) mol m-3 s-1 (reference value for arrhenius)
+    b: np.ndarray | None = None  # (nr_in,) K
+    t_ref: float = float("nan")  # K
+
+
+class _System:
+    """SEA right-hand side and Jacobian in z = ln(N_active / N_ref) for one reactor type.
+
+    Units: N mol, V m3, T K, rates mol m-3 s-1, time s.
+    """
+
+    def __init__(self, gas, reactor, mass, n_start, active, reactions, reversible_in, volume, pressure,
+                 temperature, mobility: _Mobility, trace_level: float = 0.0):
+        self.gas = gas
+        self.reactor = reactor
+        self.mass = mass  # kg
+        self.mw = gas.molecular_weights * PER_KMOL  # kg/mol
+        self.n_full = n_start.copy()  # mol
+        self.active = active
+        self.rx = reactions
+        self.reversible_in = reversible_in  # Cantera reverse rate is thermodynamic for these
+        nu = (gas.product_stoich_coeffs - gas.reactant_stoich_coeffs)
+        self.nu_a = nu[np.ix_(active, reactions)]  # (na, nr_in)
+        self.nu_rx = nu[:, reactions]  # (ns, nr_in)
+        # sparse products: cheaper, and free of BLAS threading (which, on a loaded machine, makes a
+        # 53 x 325 x 53 product a thousand times slower)
+        self.nu_sp = sparse.csr_matrix(self.nu_a)
+        self.nu_sum = nu[:, reactions].sum(axis=0)  # (nr_in,)
+        self.orders = gas.reactant_stoich_coeffs[np.ix_(active, reactions)].T  # (nr_in, na)
+        self.order_sum = gas.reactant_stoich_coeffs[:, reactions].sum(axis=0)
+        self.n_ref = float(n_start.sum())
+        self.volume = volume  # m3 (isolated)
+        self.pressure = pressure  # Pa (constant-pressure, isothermal)
+        self.temperature = temperature  # K, Newton guess (isothermal: fixed)
+        self.mob = mobility
+        part = (gas.product_stoich_coeffs + gas.reactant_stoich_coeffs) > 0
+        self.part_a = part[np.ix_(active, reactions)].astype(float)  # (na, nr_in)
+        self.eps = trace_level * self.n_ref  # mol
+        self._trace_factor = 1.0
+        self._cache = None  # species energies and heat capacities at the last temperature
+        self.n_rhs = 0
+        self.n_jac = 0
+        self._set(n_start, newton=False)
+        self.energy0 = self._energy_sum(n_start)  # J, U or H from the species properties
+
+    # state --------------------------------------------------------------------------------
+    def amounts(self, z: np.ndarray) -> np.ndarray:
+        n = self.n_full.copy()
+        n[self.active] = self.n_ref * np.exp(z)
+        return n
+
+    def z_of(self, n: np.ndarray) -> np.ndarray:
+        return np.log(n[self.active] / self.n_ref)
+
+    def _energy_sum(self, n):
+        g = self.gas
+        if self.reactor == "isolated":
+            return float(n @ g.standard_int_energies_RT) * _R * g.T
+        return float(n @ g.standard_enthalpies_RT) * _R * g.T
+
+    def _set_T(self, T, y, first):
+        g = self.gas
+        if self.reactor == "isolated":
+            # density of the actual amounts, so that concentrations are N/V also off the element
+            # manifold (where the BDF Newton iteration probes the right-hand side)
+            if first:
+                g.TDY = T, self._mass_n / self.volume, y
+            else:
+                g.TD = T, self._mass_n / self.volume
+        else:
+            if first:
+                g.TPY = T, self.pressure, y
+            else:
+                g.TP = T, self.pressure
+
+    def _set(self, n, newton=True):
+        """Set the gas to amounts n (mol) and the constrained temperature; returns T (K)."""
+        y = n * self.mw
+        self._mass_n = float(y.sum())  # kg, mass of the amounts n
+        y = y / self._mass_n
+        T = self.temperature
+        if newton and self.reactor != "isothermal" and self._cache is not None:
+            # Newton predictor from the species energies at the last temperature: usually the only
+            # Cantera update needed, the residual check below then confirms it
+            e_rt, c_r = self._cache
+            dT = -(float(n @ e_rt) * _R * T - self.energy0) / (float(n @ c_r) * _R)
+            T = min(max(T + max(min(dT, 0.5 * T), -0.5 * T), 100.0), 2e4)
+        self._set_T(T, y, True)
+        if newton and self.reactor != "isothermal":
+            g = self.gas
+            for _ in range(50):
+                if self.reactor == "isolated":
+                    e_rt, c_r = g.standard_int_energies_RT, g.standard_cp_R - 1.0
+                else:
+                    e_rt, c_r = g.standard_enthalpies_RT, g.standard_cp_R
+                dT = -(float(n @ e_rt) * _R * T - self.energy0) / (float(n @ c_r) * _R)
+                if abs(dT) < 1e-11 * T:
+                    break
+                T = min(max(T + max(min(dT, 0.5 * T), -0.5 * T), 100.0), 2e4)
+                self._set_T(T, y, False)
+            else:
+                raise RuntimeError("temperature Newton iteration did not converge")
+            self._cache = (e_rt, c_r)
+        self.temperature = T
+        return T
+
+    def state(self, z):
+        """Amounts (mol), T (K), V (m3) of z, with the gas set there."""
+        n = self.amounts(z)
+        T = self._set(n)
+        if self.mob.kind != "log-mean":
+            self._trace(n)
+        V = self.volume if self.reactor == "isolated" else self._mass_n / self.gas.density
+        return n, T, V
+
+    # dynamics -----------------------------------------------------------------------------
+    def _kinetics(self, T):
+        g = self.gas
+        x = -g.delta_gibbs[self.rx] * PER_KMOL / (_R * T)
+        # only mass action needs Cantera's rate evaluation; a metric needs the thermodynamics only
+        rf = g.forward_rates_of_progress[self.rx] * KMOL if self.mob.kind == "log-mean" else None
+        return x, rf
+
+    def _rates(self, T, x, rf):
+        """Net rates q (mol m-3 s-1) of the SEA dynamics, reverse one-way rates, mobility."""
+        mob = self.mob
+        if mob.kind == "log-mean":
+            rr = np.where(self.reversible_in, self.gas.reverse_rates_of_progress[self.rx] * KMOL,
+                          rf * np.exp(np.clip(-x, -745.0, 700.0)))
+            q = np.where(self.reversible_in, self.gas.net_rates_of_progress[self.rx] * KMOL, rf - rr)
+            return q, rr, None
+        m = mob.m if mob.kind == "constant" else mob.m * np.exp(-mob.b * (1.0 / T - 1.0 / mob.t_ref))
+        return m * self._trace_factor * x, None, m * self._trace_factor
+
+    def _trace(self, n):
+        """g_j = prod_k N_k/(N_k + eps) over the active species of reaction j (1), and eps/(N+eps).
+
+        A constant mobility would relax a species of amount N at a rate ~ m/N, without bound as
+        N -> 0; below the trace level eps the mobility is scaled like mass action instead. It
+        changes nothing where every species of the reaction is well above eps.
+        """
+        na = n[self.active]
+        ratio = self.eps / na
+        self._trace_factor = np.exp(-(self.part_a.T @ np.log1p(ratio))) if self.eps > 0 else 1.0
+        self._trace_slope = ratio / (1.0 + ratio) if self.eps > 0 else np.zeros(na.size)
+
+    def rhs(self, t, z):
+        self.n_rhs += 1
+        n, T, V = self.state(z)
+        x, rf = self._kinetics(T)
+        q, _, _ = self._rates(T, x, rf)
+        return V * (self.nu_a @ q) / n[self.active]
+
+    def _constraint_derivatives(self, n, T, V):
+        """dT/dz_i (K) and d ln V/dz_i (1) for the active species."""
+        g = self.gas
+        na = n[self.active]
+        if self.reactor == "isolated":
+            e = g.standard_int_energies_RT[self.active] * _R * T
+            c = float(n @ (g.standard_cp_R - 1.0)) * _R
+            dT = -na * e / c
+            dlnv = np.zeros_like(dT)
+        elif self.reactor == "constant-pressure":
+            e = g.standard_enthalpies_RT[self.active] * _R * T
+            c = float(n @ g.standard_cp_R) * _R
+            dT = -na * e / c
+            dlnv = na / n.sum() + dT / T
+        else:
+            dT = np.zeros(na.size)
+            dlnv = na / n.sum()
+        return dT, dlnv
+
+    def _dx(self, n, T, dT, dlnv):
+        """d x_j / d z_i, (nr_in, na)."""
+        du = self.gas.standard_int_energies_RT @ self.nu_rx  # Delta u_j / (R T)
+        return -self.nu_a.T + np.outer(self.nu_sum, dlnv) + np.outer(du / T, dT)
+
+    def jac(self, t, z):
+        """Analytic Jacobian d(dz/dt)/dz: nu, the diagonal mobility and rank-one constraint terms.
+
+        Third-body and falloff dependence of the one-way rates on composition is left out of the
+        log-mean Jacobian (it only steers Newton's iteration, not the solution).
+        """
+        self.n_jac += 1
+        n, T, V = self.state(z)
+        g = self.gas
+        x, rf = self._kinetics(T)
+        q, rr, m = self._rates(T, x, rf)
+        dT, dlnv = self._constraint_derivatives(n, T, V)
+        dx = self._dx(n, T, dT, dlnv)
+        if self.mob.kind == "log-mean":
+            kf = g.forward_rate_constants[self.rx]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                dlnk = np.where(kf != 0, g.forward_rate_constants_ddT[self.rx] / np.where(kf != 0, kf, 1.0), 0.0)
+            dlnr = self.orders - np.outer(self.order_sum, dlnv) + np.outer(dlnk, dT)
+            dq = q[:, None] * dlnr + rr[:, None] * dx
+        else:
+            dq = m[:, None] * (dx + x[:, None] * self.part_a.T * self._trace_slope[None, :])
+            if self.mob.kind == "arrhenius":
+                dq += np.outer(x * m * self.mob.b / T**2, dT)
+        na = n[self.active]
+        flux = self.nu_a @ q
+        f = V * flux / na
+        J = (V * (self.nu_sp @ dq) + np.outer(flux, V * dlnv)) / na[:, None]
+        J[np.diag_indices_from(J)] -= f
+        return J
+
+    # observables --------------------------------------------------------------------------
+    def potential(self):
+        """Phi of the current gas state, J/K: S (adiabatic) or S - H/T (isothermal)."""
+        g = self.gas
+        s = self._mass_n * g.entropy_mass
+        return s - self._mass_n * g.enthalpy_mass / g.T if self.reactor == "isothermal" else s
+
+    def held_energy(self):
+        """U or H of the current gas state from Cantera's mixture properties, J."""
+        g = self.gas
+        return self._mass_n * (g.int_energy_mass if self.reactor == "isolated" else g.enthalpy_mass)
+
+
+class _Projector:
+    """Multiplicative projection onto the element constraints E n = target (mol).
+
+    n_k -> n_k exp(sum_e a_ek lam_e) over the active species, Newton on lam: keeps amounts positive
+    and moves trace species in proportion to their amount (an element-potential correction).
+    """
+
+    def __init__(self, elements, target, active, n_template):
+        fixed = np.ones(n_template.size, bool)
+        fixed[active] = False
+        E = elements[:, active]
+        keep = np.abs(E).sum(axis=1) > 0
+        self.E = E[keep]
+        self.target = target[keep] - elements[keep][:, fixed] @ n_template[fixed]
+        self.active = active
+
+    def __call__(self, n):
+        na = n[self.active].copy()
+        E, tgt = self.E, self.target
+        for _ in range(20):
+            res = E @ na - tgt
+            if np.all(np.abs(res) <= 4e-16 * np.abs(tgt)):
+                break
+            try:
+                lam = np.linalg.solve((E * na) @ E.T, -res)
+            except np.linalg.LinAlgError:  # dependent element rows
+                lam = np.linalg.lstsq((E * na) @ E.T, -res, rcond=None)[0]
+            na = na * np.exp(E.T @ lam)
+        out = n.copy()
+        out[self.active] = na
+        return out
+
+
+# --------------------------------------------------------------------------------------------
+# one SEA path
+
+
+@dataclass
+class _Path:
+    status: str
+    reason: str
+    time: np.ndarray  # (n_grid,) s since the SEA start
+    temperature: np.ndarray
+    mole_fractions: np.ndarray
+    element_error: float
+    element_drift_unprojected: float
+    energy_error: float
+    entropy_decrease: float
+    steps: int
+    wall: float
+    trace_level: float = float("nan")
+
+
+def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements, settings, t_scale):
+    """Integrate one SEA path and sample it at the progress grid (NaN before the start)."""
+    started = _time.perf_counter()
+    ng, ns = grid.size, system.gas.n_species
+    times = np.full(ng, np.nan)
+    temps = np.full(ng, np.nan)
+    xs = np.full((ng, ns), np.nan)
+    n0 = system.amounts(z0)
+    target = elements @ n0
+    e_scale = np.where(target > 0, target, 1.0)
+    drive = phi_eq - phi_start
+    lam_stop = settings.end_progress
+    log_mean = system.mob.kind == "log-mean"
+    rtol = settings.rtol if log_mean else settings.metric_rtol
+    atol = settings.atol if log_mean else settings.metric_atol
+
+    def lam_of(phi):
+        return lam_start + (1.0 - lam_start) * (phi - phi_start) / drive
+
+    project = _Projector(elements, target, system.active, n0)
+
+    def project_state(z):
+        n = system.amounts(z)
+        raw = float(np.max(np.abs(elements @ n - target) / e_scale))
+        n = project(n)
+        _, T, _ = system.state(system.z_of(n))
+        return n, T, raw
+
+    status, reason = "ok", ""
+    e_err = raw_err = u_err = 0.0
+    worst_drop = 0.0
+    u0 = None
+    system.state(z0)
+    u0 = system.held_energy()
+    phi_prev = system.potential()
+    ts, lams, dens = [0.0], [lam_of(phi_prev)], []
+    solver = None
+    try:
+        solver = BDF(system.rhs, 0.0, z0, t_bound=settings.time_factor * t_scale, rtol=rtol, atol=atol,
+                     jac=system.jac)
+        steps = 0
+        while True:
+            msg = solver.step()
+            steps += 1
+            if solver.status == "failed":
+                status, reason = "failed", f"BDF at t = {solver.t:.4g} s, progress {lams[-1]:.6g}: {msg}"
+                break
+            # project the accepted step back onto the element constraints and hand it to the
+            # solver (its newest history entry D[0] is the current state), so drift cannot pile up
+            n, T, raw = project_state(solver.y)
+            z_p = system.z_of(n)
+            solver.y = z_p
+            solver.D[0] = z_p
+            phi = system.potential()
+            u_err = max(u_err, abs(system.held_energy() - u0) / max(abs(u0), 1e-300))
+            raw_err = max(raw_err, raw)
+            worst_drop = max(worst_drop, (phi_prev - phi) / drive)
+            phi_prev = phi
+            ts.append(solver.t)
+            lams.append(lam_of(phi))
+            dens.append(solver.dense_output())
+            if lams[-1] >= lam_stop:
+                break
+            if solver.status == "finished":
+                status, reason = "incomplete", (f"time limit {solver.t:.3g} s ({settings.time_factor:g} x the observed "
+                                                f"relaxation) reached at progress {lams[-1]:.6g}: the metric relaxes "
+                                                "far more slowly than the kinetics, or towards a constrained equilibrium")
+                break
+            if steps >= settings.max_steps:
+                status, reason = "budget", f"step budget {settings.max_steps} used at progress {lams[-1]:.6g}"
+                break
+            if _time.perf_counter() - started > settings.max_wall_seconds:
+                status, reason = "budget", f"wall budget {settings.max_wall_seconds:g} s used at progress {lams[-1]:.6g}"
+                break
+    except Exception as err:  # Cantera or linear-algebra failure: record, do not raise
+        status, reason = "failed", f"{type(err).__name__}: {str(err).splitlines()[0][:300] if str(err) else ''}"
+        steps = len(ts) - 1
+
+    ts_a, lams_a = np.asarray(ts), np.maximum.accumulate(np.asarray(lams))
+
+    def lam_at(t, k):
+        n, T, _ = project_state(dens[k](t))
+        return lam_of(system.potential())
+
+    phi_grid_prev, grid_drop = np.nan, 0.0
+    for i, level in enumerate(grid):
+        if level < lams_a[0] or level > lams_a[-1]:
+            continue
+        k = int(np.searchsorted(lams_a, level))  # step k brackets the level: (ts[k-1], ts[k]]
+        if k == 0:
+            t = 0.0
+            n = n0
+            system.state(z0)
+            T = system.temperature
+        else:
+            t = _level_time(lambda s: lam_at(s, k - 1), ts_a[k - 1], ts_a[k], lams[k - 1], lams[k], level)
+            n, T, _ = project_state(dens[k - 1](t))
+        e_err = max(e_err, float(np.max(np.abs(elements @ n - target) / e_scale)))
+        u_err = max(u_err, abs(system.held_energy() - u0) / max(abs(u0), 1e-300))
+        phi = system.potential()
+        if system.reactor == "isothermal":
+            u_err = np.nan  # nothing energetic is held fixed at (T, P)
+        if i > 0 and np.isfinite(phi_grid_prev):
+            grid_drop = max(grid_drop, (phi_grid_prev - phi) / drive)
+        phi_grid_prev = phi
+        times[i], temps[i] = t, T
+        xs[i] = n / n.sum()
+    return _Path(status, reason, times, temps, xs, e_err, raw_err, u_err, max(worst_drop, grid_drop, 0.0), steps,
+                 _time.perf_counter() - started)
+
+
+def _level_time(lam_at, a, b, la, lb, level, tol=1e-10, max_iter=8):
+    """Time in [a, b] where the progress reaches ``level`` (Illinois regula falsi on the dense output).
+
+    ``la``, ``lb`` are the progress at the step ends; lambda is smooth and monotone inside a step,
+    so a few iterations reach |lambda - level| < tol.
+    """
+    fa, fb = la - level, lb - level
+    if fb == fa or fa * fb > 0:
+        return b if abs(fb) <= abs(fa) else a
+    side = 0
+    t = b
+    for _ in range(max_iter):
+        t = b - fb * (b - a) / (fb - fa)
+        ft = lam_at(t) - level
+        if abs(ft) <= tol:
+            break
+        if ft * fb > 0:
+            b, fb = t, ft
+            if side == -1:
+                fa *= 0.5
+            side = -1
+        else:
+            a, fa = t, ft
+            if side == 1:
+                fb *= 0.5
+            side = 1
+    return t

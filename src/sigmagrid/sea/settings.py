@@ -1,0 +1,89 @@
+"""Settings of the SEA comparison and the names it uses."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+METRICS = ("log-mean", "onsager", "fitted-scalar", "fitted-diagonal", "fitted-arrhenius")
+WEIGHTS = ("entropy", "time", "progress")
+IRREVERSIBLE_TREATMENTS = ("reversible", "omit")
+PROGRESS_LEVELS = (0.5, 0.9, 0.99)
+N_SLOW_COMPARED = 5  # slow modes compared in the near-equilibrium check
+
+@dataclass(frozen=True)
+class SeaSettings:
+    """What the SEA comparison computes and how.
+
+    metrics : subset of :data:`METRICS`.
+    start_progress : 1, progress lambda_0 of the observed state the SEA paths start from.
+    weight : weight of the fits, ``entropy`` (entropy produced per interval), ``time`` (uniform in
+        time) or ``progress`` (uniform in progress; since the progress is affine in the potential
+        this is the entropy weight again, kept as a name users look for).
+    n_progress : size of the shared progress grid, from ``start_progress`` to ``end_progress``,
+        Chebyshev-spaced (dense at both ends).
+    end_progress : 1, last grid point (the relaxation only approaches lambda = 1).
+    irreversible : ``reversible`` (irreversible reactions get their thermodynamic reverse in the SEA
+        dynamics) or ``omit`` (left out of the SEA dynamics and fits).
+    rtol, atol : tolerances of the BDF integration of the log-mean path in ln(N) (atol is an
+        absolute error of ln N, i.e. a relative error of the amount); tight, since that path must
+        reproduce the observed one.
+    metric_rtol, metric_atol : the same for the other metrics, whose paths differ from the observed
+        one by far more than the integration error (1e-5 gives about 1e-4 rad on gri30).
+    max_steps : step budget of one SEA path.
+    max_wall_seconds : s, wall-clock budget of one SEA path.
+    n_modes : number of slowest relaxation rates stored.
+    time_factor : 1, an SEA path stops (status ``incomplete``) after this multiple of the observed
+        relaxation time.
+    trace_level : 1, amount (over the total) below which a constant or arrhenius mobility is scaled
+        down like mass action (see ``_System._trace``); 0 switches it off.
+    """
+
+    metrics: tuple[str, ...] = METRICS
+    start_progress: float = 0.01
+    weight: str = "entropy"
+    n_progress: int = 101
+    end_progress: float = 1.0 - 1e-6
+    irreversible: str = "reversible"
+    rtol: float = 1e-6
+    atol: float = 1e-8
+    metric_rtol: float = 1e-5
+    metric_atol: float = 1e-7
+    max_steps: int = 20_000
+    max_wall_seconds: float = 120.0
+    n_modes: int = 10
+    trace_level: float = 1e-14
+    time_factor: float = 1e3
+
+    @classmethod
+    def from_mapping(cls, mapping: dict | None) -> "SeaSettings":
+        """Settings from a config section (keys as the field names, ``-`` or ``_``); checked.
+
+        Raises ``ValueError`` naming an unknown key.
+        """
+        mapping = dict(mapping or {})
+        fields = cls.__dataclass_fields__
+        kwargs = {}
+        for key, value in mapping.items():
+            name = key.replace("-", "_")
+            if name not in fields:
+                raise ValueError(f"sea.{key}: unknown setting; allowed: {sorted(fields)}")
+            kwargs[name] = tuple(value) if name == "metrics" else value
+        settings = cls(**kwargs)
+        settings.check()
+        return settings
+
+    def check(self) -> None:
+        """Raise ``ValueError`` naming the bad field."""
+        bad = [m for m in self.metrics if m not in METRICS]
+        if bad or not self.metrics:
+            raise ValueError(f"sea.metrics: {bad or 'empty'}; allowed: {METRICS}")
+        if self.weight not in WEIGHTS:
+            raise ValueError(f"sea.weight must be one of {WEIGHTS}, not {self.weight!r}")
+        if self.irreversible not in IRREVERSIBLE_TREATMENTS:
+            raise ValueError(f"sea.irreversible must be one of {IRREVERSIBLE_TREATMENTS}")
+        if not 0.0 <= self.start_progress < self.end_progress < 1.0:
+            raise ValueError("sea: need 0 <= start_progress < end_progress < 1")
+        if self.n_progress < 2 or self.n_modes < 1:
+            raise ValueError("sea: n_progress >= 2 and n_modes >= 1")
+        if not (self.rtol > 0 and self.atol > 0 and self.metric_rtol > 0 and self.metric_atol > 0):
+            raise ValueError("sea: rtol and atol must be positive")
