@@ -217,7 +217,8 @@ def plot_affinity_rate(ds: xr.Dataset, top: int = TOP_REACTIONS):
         shown += 1
         xa, qa = np.abs(x[ok, j]), np.abs(q[ok, j])
         # exact mass action at the observed forward rates, in time order: the samples must sit on it
-        exact = np.abs(rf[ok, j] * -np.expm1(-x[ok, j]))
+        with np.errstate(over="ignore", invalid="ignore"):  # x << 0 overflows: such samples are off-axis
+            exact = np.abs(rf[ok, j] * -np.expm1(-x[ok, j]))
         ax.plot(xa, exact, color=ps.OBSERVED, lw=0.6, alpha=0.8, zorder=3)
         forward = x[ok, j] >= 0
         ax.scatter(xa[forward], qa[forward], c=progress[ok][forward], cmap=ps.PATH_CMAP, norm=norm, s=14,
@@ -232,6 +233,7 @@ def plot_affinity_rate(ds: xr.Dataset, top: int = TOP_REACTIONS):
         ax.set_yscale("log")
         # the first samples, with radicals at trace levels, reach 1e-30: they would squash the rest
         ax.set_ylim(max(qa.min(), qa.max() * 1e-12) / 2, qa.max() * 3)
+        ps.readable_log_ticks(ax)
         ax.grid(True, which="major", color="0.9", lw=0.6)
     for ax in axes[idx.size:]:
         ax.set_visible(False)
@@ -252,7 +254,10 @@ def plot_affinity_rate(ds: xr.Dataset, top: int = TOP_REACTIONS):
     bar = fig.colorbar(ScalarMappable(norm=norm, cmap=ps.PATH_CMAP), ax=list(axes[:idx.size]),
                        location="right", shrink=0.8)
     bar.set_label(ps.axis_label("progress λ of the sample", "1"))
-    fig.suptitle(_case_title(ds), fontsize=ps.FONT_SIZE + 1)
+    title = _case_title(ds)
+    if ds.attrs.get("status") != "relaxed":
+        title += "\ncase did not relax: r_eq, taken at the last sample, is not the equilibrium value"
+    fig.suptitle(title, fontsize=ps.FONT_SIZE + 1)
     return fig
 
 
@@ -322,10 +327,16 @@ def plot_sea_paths(ds: xr.Dataset):
     else:
         raise Skipped("no steepest-ascent path has a start time")
     after = t > t0
+    temperature = np.asarray(ds["temperature"].values, dtype=float)
+    # the isothermal reactor holds T: a flat temperature panel would say nothing
+    held = ds.attrs.get("reactor") == "isothermal"
     fig = ps.new_figure(*SIZE)
-    ax_s, ax_t = fig.subplots(2, 1, sharex=True)
+    if held:
+        ax_s, ax_t = fig.subplots(), None
+    else:
+        ax_s, ax_t = fig.subplots(2, 1, sharex=True)
+        ax_t.plot(t[after] - t0, temperature[after], color=ps.OBSERVED, lw=2.2)
     ax_s.plot(t[after] - t0, phi[after] - phi0, color=ps.OBSERVED, lw=2.2, label="observed (Cantera kinetics)")
-    ax_t.plot(t[after] - t0, ds["temperature"].values[after], color=ps.OBSERVED, lw=2.2)
     drawn = 0
     for i, metric in enumerate(view.metrics):
         dt = view.time[i] - t0
@@ -337,14 +348,21 @@ def plot_sea_paths(ds: xr.Dataset):
             continue
         drawn += 1
         ax_s.plot(dt[good], span * view.progress[good], color=colour, ls=style, lw=1.6, label=label)
-        ax_t.plot(dt[good], view.temperature[i][good], color=colour, ls=style, lw=1.6)
+        if ax_t is not None:
+            ax_t.plot(dt[good], view.temperature[i][good], color=colour, ls=style, lw=1.6)
     ax_s.set_xscale("log")
     ax_s.set_ylabel(ps.axis_label(_potential_label(ds), "J K-1"))
-    ax_t.set_ylabel(ps.axis_label("temperature", "K"))
-    ax_t.set_xlabel(ps.axis_label(f"time after the steepest-ascent start, t − t₀ (t₀ = {t0:.3g} s)", "s"))
-    ax_s.set_title(_case_title(ds), fontsize=ps.FONT_SIZE + 1)
+    x_label = ps.axis_label(f"time after the steepest-ascent start, t − t₀ (t₀ = {t0:.3g} s)", "s")
+    if ax_t is None:
+        ax_s.set_xlabel(x_label)
+        ax_s.set_title(_case_title(ds) + f"; temperature held at {temperature[0]:.0f} K", fontsize=ps.FONT_SIZE + 1)
+    else:
+        ax_t.set_ylabel(ps.axis_label("temperature", "K"))
+        ax_t.set_xlabel(x_label)
+        ax_s.set_title(_case_title(ds), fontsize=ps.FONT_SIZE + 1)
     for ax in (ax_s, ax_t):
-        ax.grid(True, color="0.9", lw=0.6)
+        if ax is not None:
+            ax.grid(True, color="0.9", lw=0.6)
     fig.legend(*ax_s.get_legend_handles_labels(), loc="outside right upper", frameon=False,
                fontsize=ps.FONT_SIZE - 1, title=f"path (from λ₀ = {view.progress[0]:.3g})",
                title_fontsize=ps.FONT_SIZE - 1)

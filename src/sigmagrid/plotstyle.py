@@ -18,7 +18,9 @@ import matplotlib
 
 matplotlib.use("Agg")  # before anything imports pyplot: no display on batch nodes
 
+import numpy as np  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
+from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter  # noqa: E402
 
 #: Okabe-Ito, without black (kept for the observed path) and in an order where neighbours contrast.
 OKABE_ITO = {
@@ -66,6 +68,26 @@ def equation_label(equation: str, index: int | None = None, duplicate: bool = Fa
     text = " ".join(species_label(tok) for tok in text.split(" "))
     prefix = f"R{index + 1}  " if index is not None else ""
     return f"{prefix}{text}" + ("  (dup.)" if duplicate else "")
+
+
+def readable_log_ticks(ax) -> None:
+    """Log axes spanning less than two decades get a few labelled ticks (1-2-5, else 1-1.5-2-3-5-7).
+
+    On short log ranges matplotlib labels minor ticks, or falls back to linear ticks, and the
+    labels run into each other. Call after the limits are final.
+    """
+    for axis, (low, high) in ((ax.xaxis, ax.get_xlim()), (ax.yaxis, ax.get_ylim())):
+        low, high = min(low, high), max(low, high)
+        if axis.get_scale() != "log" or not low > 0 or np.log10(high / low) >= 2:
+            continue
+        decades = range(int(np.floor(np.log10(low))), int(np.ceil(np.log10(high))) + 1)
+        for mantissas in ((1, 2, 5), (1, 1.5, 2, 3, 5, 7)):
+            ticks = [m * 10.0 ** k for k in decades for m in mantissas if low <= m * 10.0 ** k <= high]
+            if len(ticks) >= 2:
+                break
+        axis.set_major_locator(FixedLocator(ticks))
+        axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+        axis.set_minor_formatter(NullFormatter())
 
 
 def new_figure(width_px: int, height_px: int) -> Figure:
