@@ -326,3 +326,26 @@ def test_gri30_methane_air_20_atm():
     # alignment over the reactions with detailed balance; the rest is reported as a share
     assert np.all(np.abs(lm.alignment.values - 1.0) <= 1e-9)
     assert 0 < float(ds.irreversible_entropy_share) < 0.1
+
+
+def test_duplicate_with_negative_prefactor_and_absent_element():
+    """Ammonia-hydrogen-air on a mechanism Cantera ships with a negative-A duplicate and carbon
+    chemistry (carbon absent here): Mielke's identity holds per physical reaction (duplicate group),
+    and Cantera's Jacobian restricted to the species present gives the onsager spectrum."""
+    gas = mechanism.load(mechanism.resolve("example_data/ammonia-CO-H2-Alzueta-2023.yaml"))
+    info = mechanism.describe(gas)
+    assert info.negative_prefactor.any()
+    rel = reactors.relax(gas, info, "constant-pressure", 1400.0, 5 * ct.one_atm, "NH3:1, H2:0.5, O2:1, N2:3.76",
+                         FAST)
+    ds = sea.compare(gas, info, rel, _samples(rel), sea.SeaSettings(metrics=("log-mean", "fitted-diagonal")))
+    lm = ds.sel(metric="log-mean")
+    assert np.all(np.abs(lm.alignment.values - 1.0) <= 1e-9)
+    assert float(lm.largest_path_angle) <= 1e-3
+    np.testing.assert_allclose(ds.relaxation_rates_sea.values[:5], ds.relaxation_rates_kinetics.values[:5],
+                               rtol=1e-2)
+    # members of a duplicate group share the fitted mobility of the physical reaction
+    m = ds.mobility.sel(metric="fitted-diagonal").values
+    groups = info.duplicate_group
+    for g in np.unique(groups[info.negative_prefactor]):
+        members = np.flatnonzero(groups == g)
+        assert members.size > 1 and np.all(m[members] == m[members[0]])

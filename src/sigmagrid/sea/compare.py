@@ -130,53 +130,65 @@ def _compare(gas, info, rel, sample_index, settings):
     eq = rel.equilibrium
     gas.TPX = eq.temperature, eq.pressure, eq.mole_fractions
     r_eq = gas.forward_rates_of_progress * KMOL
-    lm_all = log_mean_mobility(rf_all, rr_all, x_all)
 
-    mobility = {}
+    # Fits and alignment work on physical reactions: the members of a duplicate group share x and
+    # add their rates (a member with a negative pre-exponential factor alone has x q < 0)
+    groups = _Groups(info.duplicate_group)
+    xg, qg = x_all[:, groups.reps], groups.total(q_all)
+    validg, includedg = valid[:, groups.reps], included[groups.reps]
+    lm_g = log_mean_mobility(groups.total(rf_all), groups.total(rr_all), xg)
+    r_eq_g = groups.total(r_eq[None, :])[0]
+    temps = rel.temperature
+
+    mobility = {}  # per reaction (members of a group carry the group's value)
+    mobility_g = {}  # per group, what the SEA dynamics uses
     notes = {m: [] for m in settings.metrics}
     params = {}
     quality = {}
     align_full = {}
     for metric in settings.metrics:
         if metric == "log-mean":
-            M_path = lm_all
-            mobility[metric] = np.full(nr, np.nan)
+            M_path = lm_g
+            mobility_g[metric] = np.full(groups.n, np.nan)
         elif metric == "onsager":
-            M_path = np.broadcast_to(np.where(included, r_eq, np.nan), x_all.shape)
-            mobility[metric] = np.where(included, r_eq, np.nan)
+            mobility_g[metric] = np.where(includedg, r_eq_g, np.nan)
+            M_path = np.broadcast_to(mobility_g[metric], xg.shape)
         elif metric == "fitted-scalar":
-            m = float(_clip_negative(np.array([fit_scalar(x_all, q_all, w, valid)]), np.array([True]), metric,
+            m = float(_clip_negative(np.array([fit_scalar(xg, qg, w, validg)]), np.array([True]), metric,
                                      notes)[0])
-            mobility[metric] = np.where(included, m, np.nan)
-            M_path = np.broadcast_to(mobility[metric], x_all.shape)
+            mobility_g[metric] = np.where(includedg, m, np.nan)
+            M_path = np.broadcast_to(mobility_g[metric], xg.shape)
         elif metric == "fitted-diagonal":
-            m = fit_diagonal(x_all, q_all, w, valid)
-            m = _clip_negative(m, included, metric, notes)
-            mobility[metric] = np.where(included, m, np.nan)
-            M_path = np.broadcast_to(mobility[metric], x_all.shape)
+            m = _clip_negative(fit_diagonal(xg, qg, w, validg), includedg, metric, notes)
+            mobility_g[metric] = np.where(includedg, m, np.nan)
+            M_path = np.broadcast_to(mobility_g[metric], xg.shape)
         else:
-            m_ref, b = fit_arrhenius(x_all, q_all, w, valid, rel.temperature, eq.temperature)
-            m_ref = _clip_negative(m_ref, included, metric, notes)
-            params["m_ref"] = np.where(included, m_ref, np.nan)
-            params["b"] = np.where(included, b, np.nan)
-            mobility[metric] = np.full(nr, np.nan)
-            M_path = params["m_ref"][None, :] * np.exp(np.clip(-np.outer(1.0 / rel.temperature - 1.0 / eq.temperature,
+            m_ref, b = fit_arrhenius(xg, qg, w, validg, temps, eq.temperature)
+            m_ref = _clip_negative(m_ref, includedg, metric, notes)
+            params["m_ref"] = np.where(includedg, m_ref, np.nan)
+            params["b"] = np.where(includedg, b, np.nan)
+            mobility_g[metric] = np.full(groups.n, np.nan)
+            M_path = params["m_ref"][None, :] * np.exp(np.clip(-np.outer(1.0 / temps - 1.0 / eq.temperature,
                                                                          params["b"]), -700, 700))
-        Mc = np.where(included[None, :] & np.isfinite(M_path), M_path, 0.0)
-        quality[metric] = fit_quality(q_all, Mc * x_all, w, valid)
+        mobility[metric] = mobility_g[metric][groups.inverse]
+        Mc = np.where(includedg[None, :] & np.isfinite(M_path), M_path, 0.0)
+        quality[metric] = fit_quality(qg, Mc * xg, w, validg)
         # the alignment is taken over the reactions with detailed balance: an irreversible reaction's
         # observed rate is not of the form M x under any metric (its x q can be negative); its share
         # of the entropy production is reported separately
-        aligned = included & info.reversible
-        xi = np.where(aligned[None, :], x_all, 0.0)
-        qi = np.where(aligned[None, :], q_all, 0.0)
+        aligned = includedg & info.reversible[groups.reps]
+        xi = np.where(aligned[None, :], xg, 0.0)
+        qi = np.where(aligned[None, :], qg, 0.0)
         align_full[metric] = alignment(xi, qi, np.where(aligned[None, :], Mc, 0.0))
+    for key in ("m_ref", "b"):
+        if key in params:
+            params[key] = params[key][groups.inverse]
 
     # share of |entropy production| by irreversible reactions on the compared part of the path
     w_t = path_weights("time", rel.time, rel.potential, lam) * (lam >= settings.start_progress)
-    sig = np.abs(x_all * q_all) * w_t[:, None]
+    sig = np.abs(xg * qg) * w_t[:, None]
     total_sig = float(sig.sum())
-    irr_share = float(sig[:, ~info.reversible].sum()) / total_sig if total_sig > 0 else float("nan")
+    irr_share = float(sig[:, ~info.reversible[groups.reps]].sum()) / total_sig if total_sig > 0 else float("nan")
 
     # entropy-production ratio observed / largest at equal cost, along the path (entropy-weighted)
     # over the compared part of the path (progress >= start_progress), where no species is absent
@@ -197,27 +209,28 @@ def _compare(gas, info, rel, sample_index, settings):
     # SEA paths
     lam_start = float(lam[k_start])
     t_start = float(rel.time[k_start])
-    reversible_in = info.reversible[rx]
     if rel.reactor == "isolated":
         volume, pressure = float(rel.volume[k_start]), float("nan")
     else:
         volume, pressure = float("nan"), float(rel.pressure[k_start])
     t_scale = max(float(rel.time[-1] - t_start), 1e-12)
     paths = {}
-    systems = {}
     phi_eq_sea = None
+    rx_g = groups.reps[includedg]  # one representative reaction per included physical reaction
+    gi = np.flatnonzero(includedg)
     for metric in settings.metrics:
         if metric == "log-mean":
-            mob = _Mobility("log-mean")
+            mob, reactions = _Mobility("log-mean"), rx
         elif metric == "fitted-arrhenius":
-            mob = _Mobility("arrhenius", np.nan_to_num(params["m_ref"][rx]), np.nan_to_num(params["b"][rx]),
-                            eq.temperature)
+            m_g = np.where(includedg, np.nan_to_num(params["m_ref"][groups.reps]), 0.0)
+            mob = _Mobility("arrhenius", m_g[gi], np.nan_to_num(params["b"][groups.reps])[gi], eq.temperature)
+            reactions = rx_g
         else:
-            mob = _Mobility("constant", np.nan_to_num(np.clip(mobility[metric][rx], 0.0, None)))
+            mob = _Mobility("constant", np.nan_to_num(np.clip(mobility_g[metric][gi], 0.0, None)))
+            reactions = rx_g
         try:
-            system = _System(gas, rel.reactor, rel.mass, n_start, active, rx, reversible_in, volume, pressure,
-                             float(rel.temperature[k_start]), mob, settings.trace_level)
-            systems[metric] = system
+            system = _System(gas, rel.reactor, rel.mass, n_start, active, reactions, info.reversible[reactions],
+                             volume, pressure, float(rel.temperature[k_start]), mob, settings.trace_level)
             z0 = system.z_of(n_start)
             system.state(z0)
             phi_start = system.potential()
@@ -248,20 +261,18 @@ def _compare(gas, info, rel, sample_index, settings):
     slow_diff = {m: float("nan") for m in settings.metrics}
     spectrum_reason = ""
     try:
-        ref_system = next(iter(systems.values())) if systems else None
-        if ref_system is None:
-            raise RuntimeError("no SEA system could be built")
         gas.TPX = eq.temperature, eq.pressure, eq.mole_fractions
         n_eq = rel.mass * gas.Y / mw
         n_eq[active] = np.maximum(n_eq[active], 1e-300)
-        ref_system.temperature = eq.temperature
-        # reuse the constraint at the equilibrium's own energy
-        ref_system.energy0 = ref_system._energy_sum(n_eq) if rel.reactor != "isothermal" else ref_system.energy0
-        m_ons = np.where(included, r_eq, 0.0)[rx]
-        sea_rates = sea_spectrum(ref_system, n_eq, m_ons)
+        # a system at the equilibrium's own energy, one reaction per physical reaction
+        ref_system = _System(gas, rel.reactor, rel.mass, n_eq, active, rx_g, info.reversible[rx_g],
+                             eq.volume if rel.reactor == "isolated" else volume, pressure, eq.temperature,
+                             _Mobility("constant", r_eq_g[gi]))
+        sea_rates = sea_spectrum(ref_system, n_eq, r_eq_g[gi])
         rank = sea_rates.size
         kin_rates = kinetics_spectrum(gas, info, settings.irreversible, rel.reactor, eq.temperature, eq.pressure,
-                                      eq.mole_fractions, eq.volume, rank)
+                                      eq.mole_fractions, eq.volume, rank,
+                                      [gas.species_names[k] for k in active])
         k = min(settings.n_modes, rank)
         spectra["sea"][:k] = sea_rates[:k]
         spectra["kinetics"][:k] = kin_rates[:k]
@@ -270,9 +281,9 @@ def _compare(gas, info, rel, sample_index, settings):
             if metric in ("log-mean", "onsager"):
                 r_m = sea_rates  # the log-mean mobility tends to r_eq at equilibrium
             elif metric == "fitted-arrhenius":
-                r_m = sea_spectrum(ref_system, n_eq, np.nan_to_num(params["m_ref"][rx]))
+                r_m = sea_spectrum(ref_system, n_eq, np.nan_to_num(params["m_ref"][groups.reps])[gi])
             else:
-                r_m = sea_spectrum(ref_system, n_eq, np.nan_to_num(np.clip(mobility[metric][rx], 0, None)))
+                r_m = sea_spectrum(ref_system, n_eq, np.nan_to_num(np.clip(mobility_g[metric][gi], 0, None)))
             if r_m.size >= n_cmp and n_cmp > 0:
                 slow_diff[metric] = float(np.max(np.abs(r_m[:n_cmp] - kin_rates[:n_cmp]) / kin_rates[:n_cmp]))
     except Exception as err:
@@ -286,6 +297,22 @@ def _compare(gas, info, rel, sample_index, settings):
         "irr_share": irr_share,
     }
     return _assemble(gas, rel, sample_index, settings, result, "")
+
+
+class _Groups:
+    """Duplicate groups as physical reactions: representative indices and sums over members."""
+
+    def __init__(self, duplicate_group):
+        self.reps, self.inverse = np.unique(duplicate_group, return_inverse=True)
+        self.n = self.reps.size
+        nr = self.inverse.size
+        self._sum = sparse.csr_matrix((np.ones(nr), (np.arange(nr), self.inverse)), shape=(nr, self.n))
+
+    def total(self, a):
+        """Sum over the members of each group, (n, nr) -> (n, n_groups)."""
+        if self.n == self.inverse.size:
+            return np.asarray(a)[:, self.reps]
+        return np.asarray(self._sum.T @ np.asarray(a).T).T
 
 
 def _clip_negative(m, included, metric, notes):

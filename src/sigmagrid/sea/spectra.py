@@ -65,12 +65,15 @@ def _reference_solution(gas: ct.Solution, info: MechanismInfo, treatment: str) -
         return ct.Solution(thermo="ideal-gas", kinetics="gas", species=gas.species(), reactions=reactions)
 
 
-def kinetics_spectrum(gas, info, treatment, reactor, T, P, X, volume, rank) -> np.ndarray:
+def kinetics_spectrum(gas, info, treatment, reactor, T, P, X, volume, rank, species=None) -> np.ndarray:
     """Relaxation rates (s-1, ascending) from Cantera's reactor Jacobian at the equilibrium state.
 
     ``IdealGasMoleReactor`` (isolated) or ``IdealGasConstPressureMoleReactor`` (constant pressure,
     isothermal with energy off), Jacobian of Cantera's own governing equations; the
     ``rank`` fastest-decaying eigenvalues are the chemical modes, the rest are conserved quantities.
+    ``species`` (names) restricts the Jacobian to those species plus temperature and volume: a
+    species of zero amount (its element absent) only decays, in a block of its own, and is not
+    part of the relaxation compared.
     """
     ref = gas if info.n_irreversible == 0 else _reference_solution(gas, info, treatment)
     ref.TPX = T, P, X
@@ -86,5 +89,9 @@ def kinetics_spectrum(gas, info, treatment, reactor, T, P, X, volume, rank) -> n
     # ``jacobian`` of the constant-pressure mole reactor leaves out terms (0.5 % on a slow mode of
     # gri30 at 1 atm), the finite-difference one agrees with it elsewhere to 1e-7
     J = np.asarray(r.finite_difference_jacobian)
+    if species is not None:
+        keep = [i for i in range(J.shape[0]) if r.component_name(i) in ("temperature", "volume")]
+        keep += [r.component_index(name) for name in species]
+        J = J[np.ix_(keep, keep)]
     rates = -np.linalg.eigvals(J).real
     return np.sort(np.sort(rates)[::-1][:rank])
