@@ -263,7 +263,8 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
     attrs = {k: summary.attrs[k] for k in ("mechanism", "mechanism_sha256", "study") if k in summary.attrs}
     return xr.Dataset(data, coords=coords, attrs={
         "Conventions": store.CONVENTIONS, "title": f"sigmagrid reaction ranking {attrs.get('study', '')}".strip(),
-        "source": "sigmagrid", "negligible_fraction": negligible,
+        "source": "sigmagrid", "history": f"ranked from {len(case_ids)} cases of the summary",
+        "negligible_fraction": negligible,
         "negative_tolerance": NEGATIVE_TOLERANCE, "n_cases": len(case_ids), "n_cases_used": int(usable.sum()),
         "cases_left_out": ", ".join(np.array(case_ids)[~usable]),
         "references": "Kooshkbaghi et al., Combust. Flame 161 (2014) 1507 (entropy production analysis)",
@@ -601,6 +602,7 @@ def assess_cut(config: dict, mechanism_path: str | Path, summary: xr.Dataset, ca
     coords = {c: full.coords[c] for c in full.coords if full.coords[c].dims == ("case",)}
     return xr.Dataset(data, coords=coords, attrs={
         "Conventions": store.CONVENTIONS, "title": f"sigmagrid validation of cut {name}", "source": "sigmagrid",
+        "history": f"{nc} cases rerun on {Path(mechanism_path).name}",
         "cut": name, "cut_mechanism": str(mechanism_path), "n_species": n_species, "n_reactions": n_reactions,
         "load_error": load_error})
 
@@ -698,7 +700,7 @@ def summarize_cuts(config: dict, ranking: xr.Dataset, cut_dir: str | Path,
         case_coords = {}
     ds = xr.Dataset(data, coords={"cut": ("cut", col("cut", str), {"long_name": "cut name"}), **case_coords}, attrs={
         "Conventions": store.CONVENTIONS, "title": "sigmagrid reduced mechanisms and what they cost",
-        "source": "sigmagrid", "smallest_within_tolerances": smallest,
+        "source": "sigmagrid", "history": f"{len(rows)} cuts summarized", "smallest_within_tolerances": smallest,
         **{f"tolerance_{k}": float(v) for k, v in tol.items()},
         "comment": "errors are against the full mechanism on the same cases; median is the typical error"})
     return ds, table
