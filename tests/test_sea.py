@@ -50,8 +50,14 @@ def h2_case(request, h2o2_gas):
     return gas, info, rel, idx, ds
 
 
-def test_layout_and_units(h2_case):
+def test_layout_and_units(h2_case, tmp_path):
     gas, _, rel, idx, ds = h2_case
+    # the result survives a netCDF round trip with its units (the case file is netCDF)
+    ds.to_netcdf(tmp_path / "sea.nc")
+    import xarray as xr
+    with xr.open_dataset(tmp_path / "sea.nc") as back:
+        assert back.path_angle.attrs["units"] == "rad"
+        np.testing.assert_array_equal(back.sea_status.values.astype(str), ds.sea_status.values.astype(str))
     np.testing.assert_array_equal(ds.time.values, rel.time[idx])
     assert list(ds.reaction.values) == gas.reaction_equations()
     assert list(ds.species.values) == gas.species_names

@@ -404,14 +404,21 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
     ds = xr.Dataset(
         {
             "mobility": var(("metric", "reaction"), mob, "mol m-3 s-1",
-                            "constant mobility of the steepest-entropy-ascent metric (NaN where not constant)"),
+                            "constant mobility of the steepest-entropy-ascent metric (NaN where not constant)",
+                            comment="q = M x with x = A/(RT); members of a duplicate group carry the mobility "
+                                    "of the group; NaN for log-mean and fitted-arrhenius (state dependent) and "
+                                    "for reactions outside the SEA dynamics"),
             "fit_quality": var(("metric",), quality, "1",
                                "weighted coefficient of determination of q against M x on the observed path"),
             "alignment": var(("metric", "time"), align, "1",
-                             "cosine of the angle between observed rates and steepest ascent under the metric"),
+                             "cosine of the angle between observed rates and steepest ascent under the metric",
+                             comment="x.q / (sqrt(q.G.q) sqrt(x.M.x)), G = M^-1, over reactions with detailed "
+                                     "balance (duplicate groups summed); also the observed entropy production "
+                                     "over the largest at equal cost q.G.q"),
             "entropy_production_ratio": var(("metric",), ep, "1",
                                             "entropy produced on the observed path over the largest at equal cost"),
-            "sea_time": var(("metric", "progress"), sea_t, "s", "time of the steepest-entropy-ascent path"),
+            "sea_time": var(("metric", "progress"), sea_t, "s", "time of the steepest-entropy-ascent path",
+                            comment="observed time of the SEA start sample plus the SEA clock"),
             "sea_temperature": var(("metric", "progress"), sea_T, "K",
                                    "temperature of the steepest-entropy-ascent path"),
             "sea_mole_fraction": var(("metric", "progress", "species"), sea_x, "1",
@@ -419,12 +426,14 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
             "observed_time": var(("progress",), obs_t, "s", "time at which the observed path reaches the progress"),
             "observed_temperature": var(("progress",), obs_T, "K", "temperature of the observed path"),
             "path_angle": var(("metric", "progress"), angle, "rad",
-                              "Fisher-Rao angle between observed and steepest-ascent mole fractions"),
+                              "Fisher-Rao angle between observed and steepest-ascent mole fractions",
+                              comment="2 arccos(sum_k sqrt(X_k Y_k)) at equal entropy progress; 0 to pi"),
             "temperature_difference": var(("metric", "progress"), dT, "K",
                                           "steepest-ascent minus observed temperature"),
             "largest_path_angle": var(("metric",), largest, "rad", "largest Fisher-Rao path angle"),
             "time_ratio": var(("metric", "progress_level"), ratio, "1",
-                              "steepest-ascent over observed time from the start progress to the level"),
+                              "steepest-ascent over observed time from the start progress to the level",
+                              comment="(t_sea(level) - t_sea(start)) / (t_obs(level) - t_obs(start))"),
             "slow_mode_difference": var(("metric",), slow, "1",
                                         f"largest relative difference of the {N_SLOW_COMPARED} slowest relaxation "
                                         "rates, metric linearised at equilibrium against the kinetics"),
