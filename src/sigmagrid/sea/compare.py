@@ -466,7 +466,7 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
                                         "largest decrease of the potential between steps over its total rise"),
         },
         coords={
-            "metric": ("metric", np.array(metrics, dtype=str)),
+            "metric": ("metric", np.array(metrics, dtype=str), {"long_name": "steepest-entropy-ascent metric"}),
             "reaction": ("reaction", np.array(gas.reaction_equations(), dtype=str)),
             "species": ("species", np.array(gas.species_names, dtype=str)),
             "time": ("time", times, {"units": "s", "long_name": "time of the stored samples"}),
