@@ -360,6 +360,15 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
             dens.append(solver.dense_output())
             if lams[-1] >= lam_stop:
                 break
+            if solver.t > 10.0 * t_scale:
+                # stalled: over the last decade of time the path gained less than a thousandth of
+                # what remains (a metric that relaxes on a far longer time scale, or is stuck)
+                j = int(np.searchsorted(ts, solver.t / 10.0))
+                if lams[-1] - lams[j] < 1e-3 * (1.0 - lams[-1]):
+                    status, reason = "incomplete", (
+                        f"stalled at progress {lams[-1]:.6g} after {solver.t:.3g} s ({solver.t / t_scale:.3g} x the "
+                        "observed relaxation): less than 1e-3 of the remaining progress in the last decade of time")
+                    break
             if solver.status == "finished":
                 status, reason = "incomplete", (f"time limit {solver.t:.3g} s ({settings.time_factor:g} x the observed "
                                                 f"relaxation) reached at progress {lams[-1]:.6g}: the metric relaxes "
