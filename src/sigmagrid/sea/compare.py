@@ -81,6 +81,9 @@ class _Degenerate(Exception):
 def _compare(gas, info, rel, sample_index, settings):
     if rel.reactor not in ("isolated", "constant-pressure", "isothermal"):
         raise _Degenerate(f"reactor type {rel.reactor!r} is not supported by the SEA comparison")
+    if gas.thermo_model not in ("ideal-gas", "IdealGas"):
+        # the SEA dynamics use ideal-gas chemical potentials, energies and Hessian
+        raise _Degenerate(f"thermo model {gas.thermo_model!r}: the SEA comparison needs an ideal gas")
     if rel.equilibrium is None:
         raise _Degenerate(f"no equilibrium state (relaxation {rel.status}: {rel.reason})")
     if rel.at_equilibrium_start:
