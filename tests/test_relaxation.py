@@ -94,7 +94,7 @@ def test_linear_regime_near_equilibrium(case_files):
 
 def test_progress_and_times(case_files):
     for label, ds in relaxed(case_files).items():
-        lam = ds["progress"].values
+        lam = ds["path_progress"].values
         assert lam[0] == 0.0 and lam[-1] == pytest.approx(1.0, abs=1e-6)
         t = ds["time_to_progress"].values
         assert np.all(np.diff(t) > 0) and np.all(t > 0), label

@@ -28,6 +28,7 @@ DEFAULTS: dict[str, Any] = {
     "reactor_volume": 1e-3,
     "storage": {"max_samples": 500},
     "batch": {"cases_per_job": 8, "max_cases": 20_000},
+    "sea": {"enabled": True},
     "progress_grid": {"points": 101},
     "reduction": {"criteria": ["local"], "thresholds": [0.0, 0.001, 0.01, 0.1], "negligible": 1e-3,
                   "negative_entropy": "keep", "keep_species": [], "validate": True, "validation_cases": {},

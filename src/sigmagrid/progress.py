@@ -77,6 +77,15 @@ def _carry(values: np.ndarray, lower, upper, weight) -> np.ndarray:
     return (1.0 - w) * values[lower] + w * values[upper]
 
 
+def path_progress(ds: xr.Dataset) -> np.ndarray:
+    """The progress of each stored sample of a case file (1): ``path_progress`` (time), or the
+    older ``progress`` (time); an empty array when the file has neither."""
+    for name in ("path_progress", "progress"):
+        if name in ds.variables and ds[name].dims == ("time",):
+            return np.asarray(ds[name].values, dtype=float)
+    return np.array([])
+
+
 def resample_case(ds: xr.Dataset, levels: np.ndarray) -> dict[str, np.ndarray]:
     """One case file's path on the progress levels: arrays keyed by variable name.
 
@@ -89,7 +98,7 @@ def resample_case(ds: xr.Dataset, levels: np.ndarray) -> dict[str, np.ndarray]:
            "mole_fraction": np.full((nl, ns), np.nan), "entropy_production_total": np.full(nl, np.nan),
            "entropy_share": np.full((nl, nr), np.nan), "affinity": np.full((nl, nr), np.nan),
            "net_rate": np.full((nl, nr), np.nan)}
-    progress = np.asarray(ds["progress"].values, dtype=float) if "progress" in ds else np.array([])
+    progress = path_progress(ds)
     if progress.ndim != 1 or progress.size < 2 or not np.isfinite(progress).any():
         return out  # failed case or a start at equilibrium: progress undefined
     lower, upper, weight = interpolation_weights(progress, levels)
@@ -105,8 +114,12 @@ def resample_case(ds: xr.Dataset, levels: np.ndarray) -> dict[str, np.ndarray]:
         out["entropy_share"] = np.where(total[:, None] != 0, sigma_j / total[:, None], np.nan)
     for name in ("affinity", "net_rate"):
         out[name] = _carry(np.asarray(ds[name].values, dtype=float), lower, upper, weight)
+    for name in ("mole_fraction", "entropy_share", "affinity", "net_rate"):
+        out[name] = out[name].astype(np.float32)  # stored as float32: keep the memory of a big grid small
     return out
 
+
+_READ = ("path_progress", "progress", "temperature", "pressure", "mole_fraction", "entropy_production", "affinity", "net_rate")
 
 _VARIABLES = {
     "time": (("case", "progress"), "s", "time at which the case reaches the progress level"),
@@ -146,7 +159,8 @@ def resample(paths: list[str | Path], points: int = DEFAULT_POINTS,
     rows, meta, species, reactions, attrs = [], [], None, None, {}
     for n, path in enumerate(paths, 1):
         try:
-            ds = store.open_case(path)
+            with xr.open_dataset(path) as whole:  # only the variables resampled
+                ds = whole[[v for v in _READ if v in whole.variables]].load()
         except Exception as err:  # a damaged file must not stop the others
             rows.append(None)
             meta.append({"case_id": path.stem, "status": "failed", "label": path.stem, "reason": str(err)})

@@ -22,6 +22,7 @@ import numpy as np
 import xarray as xr
 
 from . import __version__, config as config_mod, diagnostics, grid as grid_mod, mechanism, safety, store
+from . import sea as sea_mod
 from .errors import InputError
 from .reactors import Relaxation, RelaxSettings, relax
 
@@ -30,6 +31,7 @@ from .reactors import Relaxation, RelaxSettings, relax
 class RunSettings:
     relax: RelaxSettings
     max_samples: int = 500
+    sea: "sea_mod.SeaSettings | None" = None  # None: no steepest-entropy-ascent comparison
 
     @classmethod
     def from_config(cls, config: dict) -> "RunSettings":
@@ -40,7 +42,19 @@ class RunSettings:
                                 atol=float(solver["atol"]), max_steps=int(solver["max_steps"]),
                                 volume=float(config["reactor_volume"])),
             max_samples=int(config["storage"]["max_samples"]),
+            sea=_sea_settings(config.get("sea", {})),
         )
+
+
+def _sea_settings(section: dict) -> "sea_mod.SeaSettings | None":
+    section = dict(section)
+    if not section.pop("enabled", True):
+        return None
+    try:
+        return sea_mod.SeaSettings.from_mapping(section)
+    except ValueError as err:
+        field, _, message = str(err).partition(": ")
+        raise InputError(field if field.startswith("sea") else "sea", message or str(err)) from None
 
 
 def provenance(mechanism_path: Path, mechanism_sha256: str, config_sha256: str = "", study: str = "") -> dict:
@@ -83,11 +97,15 @@ def run_case(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInf
                                  np.clip(relaxation.mass_fractions[idx], 0.0, None))
     screen = safety.screen_flammability(mole_fractions)
     eq = relaxation.equilibrium
-    return store.case_dataset(
+    ds = store.case_dataset(
         case=case, relaxation=relaxation, reaction_state=state, sample_index=idx, info=info,
         equations=info.equations, species=info.species,
         equilibrium_mole_fractions=eq.mole_fractions if eq else None, flammability=screen, provenance=meta,
     )
+    if settings.sea is not None:
+        # never raises for a failing SEA path: its status and reason are stored per metric
+        ds = ds.merge(sea_mod.compare(gas, info, relaxation, idx, settings.sea), compat="override")
+    return ds
 
 
 #: |relative drift| of the held energy above which a case carries a note (round-off is ~1e-12).

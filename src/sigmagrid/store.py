@@ -188,19 +188,57 @@ def open_case(path: str | Path) -> xr.Dataset:
         return ds.load()
 
 
+#: Per-case figures of the SEA comparison carried into the summary (dims after ``case``).
+SEA_FIGURES = ("largest_path_angle", "time_ratio", "slow_mode_difference", "fit_quality",
+               "entropy_production_ratio", "sea_status")
+SEA_METRICS_SEEN: list = []
+
+
+def _sea_summary(parts: list[dict], case_ids: list[str]) -> tuple[dict, dict]:
+    """(summary variables, cases.csv columns) of the SEA figures; empty when no case has them."""
+    present = [p for p in parts if p]
+    if not present:
+        return {}, {}
+    metrics = list(present[0]["largest_path_angle"]["metric"].values) if "largest_path_angle" in present[0] else []
+    SEA_METRICS_SEEN[:] = [metrics]
+    data, columns = {}, {}
+    for name in SEA_FIGURES:
+        template = next((p[name] for p in present if name in p), None)
+        if template is None:
+            continue
+        is_text = template.dtype.kind in "OUS"
+        shape = template.shape
+        stack = []
+        for part in parts:
+            value = part.get(name)
+            if value is not None and value.shape == shape:
+                stack.append(value.values.astype(str) if is_text else value.values.astype(float))
+            else:
+                stack.append(np.full(shape, "" if is_text else np.nan, dtype=object if is_text else float))
+        array = np.array(stack, dtype=str if is_text else float)
+        attrs = {k: v for k, v in template.attrs.items() if k in ("units", "long_name")}
+        data[name] = (("case", *template.dims), array, attrs)
+        if template.dims == ("metric",):
+            unit = attrs.get("units", "")
+            for i, metric in enumerate(metrics):
+                columns[f"{name}_{metric}" + (f" [{unit}]" if unit and not is_text else "")] = array[:, i]
+    return data, columns
+
+
 def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
     """Combine case files into the grid summary and the cases table.
 
     Returns the summary Dataset (dimensions case x reaction) and a DataFrame, one row per case.
     Cases whose file does not open are listed with status ``failed`` and the reason.
     """
-    rows, produced, reactions, attrs = [], [], None, {}
+    rows, produced, reactions, attrs, sea_parts = [], [], None, {}, []
     for path in sorted(map(Path, paths)):
         try:
             ds = open_case(path)
         except Exception as err:  # a damaged file must not stop the summary
             rows.append({"case_id": path.stem, "status": "failed", "reason": f"unreadable case file: {err}"})
             produced.append(None)
+            sea_parts.append({})
             continue
         if reactions is None:
             reactions = list(ds["reaction"].values)
@@ -222,7 +260,11 @@ def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
                 if "time_to_progress" in ds else np.nan
         rows.append(row)
         produced.append(ds["entropy_produced"].values if "entropy_produced" in ds else None)
+        sea_parts.append({name: ds[name] for name in SEA_FIGURES if name in ds})
+    sea_data, sea_columns = _sea_summary(sea_parts, [r["case_id"] for r in rows])
     table = pd.DataFrame(rows)
+    for column, values in sea_columns.items():
+        table[column] = values
     if reactions is None:
         raise ValueError("no readable case file: nothing to summarize")
     nr = len(reactions)
@@ -262,6 +304,10 @@ def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
     for level in (50, 90, 99):
         data[f"time_to_{level}pct"] = ("case", table[f"time_to_{level}pct"].to_numpy(float),
                                        _attrs("s", f"time to reach {level} % progress"))
+    data.update(sea_data)
+    if sea_data:
+        coords["metric"] = ("metric", np.array(SEA_METRICS_SEEN[0], dtype=str), {"long_name": "SEA metric"})
+        coords["progress_level"] = ("progress_level", np.array([0.5, 0.9, 0.99]), _attrs("1", "progress level"))
     summary = xr.Dataset(data, coords=coords, attrs={
         "Conventions": CONVENTIONS, "title": f"sigmagrid grid summary {attrs.get('study', '')}".strip(),
         "source": "sigmagrid", "history": f"combined from {len(paths)} case files", **attrs})
@@ -312,7 +358,8 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
         "entropy": ("time", r.entropy[idx], _attrs("J K-1", "total entropy of the reactor contents")),
         "potential": ("time", r.potential[idx],
                       _attrs("J K-1", "potential that grows to its equilibrium maximum: S (adiabatic), S - H/T (isothermal)")),
-        "progress": ("time", r.progress[idx], _attrs("1", "progress (Phi - Phi_0)/(Phi_eq - Phi_0)")),
+        # not "progress": that name is the shared progress grid of the SEA comparison
+        "path_progress": ("time", r.progress[idx], _attrs("1", "progress (Phi - Phi_0)/(Phi_eq - Phi_0)")),
         "mole_fraction": (("time", "species"), x.astype(f32), _attrs("1", "mole fraction")),
         "affinity": (("time", "reaction"), reaction_state.affinity.astype(f32),
                      _attrs("J mol-1", "affinity A_j = -sum_k nu_kj mu_k")),
@@ -349,8 +396,8 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
     times_why = [f"{int(round(100 * lv))} %: {why[k]}" for lv, k in missing.PROGRESS_TIMES.items() if k in why]
     if times_why:
         data["time_to_progress"][2]["comment"] = "missing: " + "; ".join(times_why)
-    if not np.isfinite(data["progress"][1]).all():
-        data["progress"][2]["comment"] = ("missing: progress is undefined when the initial state is at "
+    if not np.isfinite(data["path_progress"][1]).all():
+        data["path_progress"][2]["comment"] = ("missing: progress is undefined when the initial state is at "
                                           "equilibrium" if r.at_equilibrium_start else "missing: case failed")
     for name, (_, values, var_attrs) in data.items():
         values = np.asarray(values)
