@@ -75,3 +75,11 @@ def pytest_terminal_summary(terminalreporter):
         terminalreporter.section("reliability: inputs tried")
         for kind, n in sorted(TRIED.items()):
             terminalreporter.write_line(f"{n:7d}  {kind}")
+
+
+def without_sea(raw: dict) -> dict:
+    """The config with the SEA comparison off, where the schema has that switch: the reliability
+    tests exercise the pipeline around the cases and must fit CI's time budget."""
+    if "sea" in config_mod.schema().get("properties", {}):
+        return {**raw, "sea": {"enabled": False}}
+    return raw

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 import yaml
 
-from conftest import count_tried, run_cli
+from conftest import count_tried, run_cli, without_sea
 from sigmagrid import config as config_mod, grid as grid_mod, mechanism, reactors, runner, store
 from sigmagrid.errors import InputError
 
@@ -43,7 +43,7 @@ def run_file(tmp_path, mech_path, composition=H2_AIR, reactor="constant-pressure
     raw = {"mechanism": str(mech_path), "reactors": [reactor], "temperature": [temperature],
            "pressure": [pressure], "compositions": [{"name": "mix", "composition": composition}],
            "stop": {"max_time": max_time}}
-    config = config_mod.validate(raw)
+    config = config_mod.validate(without_sea(raw))
     case = grid_mod.expand(config).cases[0]
     target = tmp_path / f"{case.case_id}.nc"
     runner.run_single(config, case, target)

@@ -21,10 +21,10 @@ import pytest
 import xarray as xr
 import yaml
 
-from conftest import REPO, count_tried
+from conftest import REPO, count_tried, without_sea
 from sigmagrid import config as config_mod, diagnostics, grid as grid_mod, mechanism, runner, store
 
-CONFIG = {
+CONFIG = without_sea({
     "study": "afterburner hot-spot screening (failure test)",
     "mechanism": "pathological.yaml",
     "reactors": ["isolated", "constant-pressure"],
@@ -33,7 +33,7 @@ CONFIG = {
     "pressure": [101325.0],
     "stop": {"max_time": 0.5},
     "batch": {"cases_per_job": 4},
-}
+})
 
 
 def _pathological(folder):
@@ -91,10 +91,11 @@ def test_the_other_cases_of_the_batch_are_stored_and_right(workflow_run):
 
 def test_an_internal_error_in_one_case_does_not_stop_the_batch(tmp_path, monkeypatch):
     # A bug of ours (here: the diagnostics raise for one case) becomes a failed case file.
-    config = config_mod.validate({"mechanism": "h2o2.yaml", "reactors": ["isolated"],
-                                  "feed": {"fuel": "H2:1", "oxidizer": "O2:1,N2:3.76",
-                                           "equivalence_ratio": [0.5, 1.0, 2.0]},
-                                  "temperature": [1100.0], "pressure": [101325.0], "stop": {"max_time": 0.2}})
+    config = config_mod.validate(without_sea({"mechanism": "h2o2.yaml", "reactors": ["isolated"],
+                                              "feed": {"fuel": "H2:1", "oxidizer": "O2:1,N2:3.76",
+                                                       "equivalence_ratio": [0.5, 1.0, 2.0]},
+                                              "temperature": [1100.0], "pressure": [101325.0],
+                                              "stop": {"max_time": 0.2}}))
     cases = sorted(grid_mod.expand(config).cases, key=lambda c: c.case_id)
     victim = cases[1]
     real = diagnostics.evaluate
@@ -120,9 +121,11 @@ def test_an_internal_error_in_one_case_does_not_stop_the_batch(tmp_path, monkeyp
 
 
 def test_an_unreadable_case_file_is_listed_not_fatal(tmp_path):
-    config = config_mod.validate({"mechanism": "h2o2.yaml", "reactors": ["isolated", "constant-pressure"],
-                                  "feed": {"fuel": "H2:1", "oxidizer": "O2:1,N2:3.76", "equivalence_ratio": [1.0]},
-                                  "temperature": [1100.0], "pressure": [101325.0], "stop": {"max_time": 0.2}})
+    config = config_mod.validate(without_sea({"mechanism": "h2o2.yaml", "reactors": ["isolated", "constant-pressure"],
+                                              "feed": {"fuel": "H2:1", "oxidizer": "O2:1,N2:3.76",
+                                                       "equivalence_ratio": [1.0]},
+                                              "temperature": [1100.0], "pressure": [101325.0],
+                                              "stop": {"max_time": 0.2}}))
     files = runner.run_cases(config, list(grid_mod.expand(config).cases), tmp_path / "cases", report=lambda l: None)
     files[0].write_bytes(files[0].read_bytes()[:200])  # damaged outside sigmagrid (a disk, a copy)
     summary = runner.write_summary(files, tmp_path / "summary.nc", tmp_path / "cases.csv")
