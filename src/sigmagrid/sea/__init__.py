@@ -22,9 +22,22 @@ fitted-arrhenius    diag(m_j exp(-b_j (1/T-1/T_r)))  a temperature-only metric
 Numerics: the SEA path is integrated in logarithmic amounts z_k = ln(N_k / N_0) (amounts stay
 positive whatever the step), with an analytic Jacobian assembled from nu, the diagonal mobility and
 a rank-one correction for the temperature constraint; T is solved by Newton's method at every
-evaluation, so U (or H) holds to the Newton tolerance. Each stored state is projected back onto
-the element constraints by a multiplicative (element-potential) correction, the projection method
-of Hairer, Lubich and Wanner, Geometric Numerical Integration (2006), sec. IV.4.
+evaluation, so U (or H) holds to the Newton tolerance. Each accepted step is projected back onto
+the element constraints by a multiplicative (element-potential) correction and handed back to the
+solver, the projection method of Hairer, Lubich and Wanner, Geometric Numerical Integration
+(2006), sec. IV.4.
+
+Choices that shape the numbers (all stored with the result):
+
+- Physical reactions: members of a duplicate group share x and add their rates; fits, alignment
+  and the constant metrics work per group (a member with a negative pre-exponential factor alone
+  has x q < 0). The log-mean path uses every member (it is mass action).
+- Irreversible reactions get their thermodynamic reverse in the SEA dynamics (``irreversible =
+  "reversible"``) or are left out (``"omit"``); they never enter the alignment, and their share of
+  the entropy production is stored as ``irreversible_entropy_share``.
+- A constant mobility relaxes a species of amount N at a rate ~ m/N; below ``trace_level`` times
+  the total amount the mobility of its reactions is scaled like mass action, N/(N + eps).
+- Only ideal-gas phases are compared (chemical potentials, energies and Hessian assume one).
 
 References
 ----------
