@@ -298,7 +298,13 @@ class _Path:
 
 
 def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements, settings, t_scale):
-    """Integrate one SEA path and sample it at the progress grid (NaN before the start)."""
+    """Integrate one SEA path and sample it at the progress grid (NaN where it is not reached).
+
+    The SEA progress is lambda_start + (1 - lambda_start)(Phi - Phi_start)/(Phi_eq - Phi_start), with
+    Phi_eq the equilibrium of the start state's own energy and elements, so the path ends at 1 even
+    where the observed path's held energy drifted. Stops at ``end_progress``, when stalled, at the
+    time limit, or at the step or wall budget (status and reason say which).
+    """
     started = _time.perf_counter()
     ng, ns = grid.size, system.gas.n_species
     times = np.full(ng, np.nan)
@@ -328,7 +334,6 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
     status, reason = "ok", ""
     e_err = raw_err = u_err = 0.0
     worst_drop = 0.0
-    u0 = None
     system.state(z0)
     u0 = system.held_energy()
     phi_prev = system.potential()
