@@ -175,7 +175,8 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
         sigma = None
         if path is not None and status[n - 1] != "failed":
             try:
-                ds = store.open_case(path)
+                with xr.open_dataset(path) as whole:  # only what the scores need
+                    ds = whole[["entropy_production", "reversible", "duplicate_group"]].load()
                 if ds.sizes.get("reaction") == nr:
                     sigma = ds["entropy_production"].values.astype(float)
                     if reversible is None:
@@ -427,8 +428,9 @@ def source_units(path: str | Path) -> dict | None:
 def write_yaml_atomic(solution: ct.Solution, path: str | Path, description: str, units: dict | None = None) -> Path:
     """Cantera's own YAML writer, to a temporary name in the same folder, then renamed.
 
-    A file that differs from the existing one only in the writer's ``date:`` line is left alone,
-    so an unchanged cut keeps its content hash (and the ids of its validation cases).
+    The writer's ``date:`` header line is left out, so the same cut always gives the same bytes:
+    its content hash, and with it the ids of its validation cases, survive a rewrite (reruns
+    resume from the case files already computed).
     """
     import os
     import tempfile
@@ -445,12 +447,8 @@ def write_yaml_atomic(solution: ct.Solution, path: str | Path, description: str,
         except ct.CanteraError:  # a unit system the writer does not take: its own default
             solution.write_yaml(tmp)
 
-        def body(text: str) -> str:
-            return "\n".join(ln for ln in text.splitlines() if not ln.startswith("date:"))
-
-        if path.is_file() and body(path.read_text()) == body(Path(tmp).read_text()):
-            Path(tmp).unlink()
-            return path
+        text = Path(tmp).read_text()
+        Path(tmp).write_text("".join(ln for ln in text.splitlines(keepends=True) if not ln.startswith("date:")))
         os.chmod(tmp, 0o644)
         os.replace(tmp, path)
     except BaseException:
