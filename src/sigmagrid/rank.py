@@ -540,6 +540,8 @@ def assess_cut(config: dict, mechanism_path: str | Path, summary: xr.Dataset, ca
     load_error = ""
     cut_config = copy.deepcopy(config)
     cut_config["mechanism"] = str(Path(mechanism_path).resolve())
+    if "sea" in cut_config:  # the comparison with steepest ascent is no part of what a cut costs
+        cut_config["sea"] = dict(cut_config["sea"], enabled=False)
     try:
         cut_config = config_mod.validate(cut_config)
         cut_grid = grid_mod.expand(cut_config)
