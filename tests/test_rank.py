@@ -344,3 +344,18 @@ def test_validation_subset_and_a_cut_without_reactions(reduced, tmp_path):
     assert v["cut_failed"].values.all() and "no reactions" in v.attrs["load_error"]
     row = pd.read_csv(results / "reduction.csv").set_index("cut").loc["local-0.99"]
     assert not row["within_tolerances"] and isinstance(row["note"], str) and row["note"]
+
+
+def test_cli_refuses_a_ranking_of_another_mechanism(reduced, tmp_path):
+    from conftest import run_cli
+
+    _, results, _ = reduced
+    config = tmp_path / "gri.yaml"
+    config.write_text("mechanism: gri30.yaml\nreactors: [isolated]\nfeed: {fuel: 'H2:1', oxidizer: 'O2:1, N2:3.76', "
+                      "equivalence_ratio: [1.0]}\ntemperature: [1100.0]\npressure: [101325.0]\n")
+    done = run_cli("cut", str(config), "--ranking", str(results / "ranking.nc"), "--out-dir", str(tmp_path / "cuts"))
+    assert done.returncode == 2 and "not the mechanism the ranking was made with" in done.stderr
+    assert not (tmp_path / "cuts").exists() or not list((tmp_path / "cuts").glob("*.yaml"))
+    done = run_cli("rank", str(tmp_path / "none.nc"), "--summary", str(results / "summary.nc"),
+                   "--table", str(tmp_path / "r.csv"), "--out", str(tmp_path / "r.nc"))
+    assert done.returncode == 2 and not (tmp_path / "r.csv").exists() and "Traceback" not in done.stderr

@@ -44,7 +44,10 @@ def cmd_resample(args) -> int:
     points = points or progress.DEFAULT_POINTS
     if points < 3:
         raise InputError("--points", f"must be at least 3, got {points}")
-    ds = progress.write(args.files, args.out, points, report=_say)
+    try:
+        ds = progress.write(args.files, args.out, points, report=_say)
+    except ValueError as err:  # no readable case file
+        raise InputError("files", str(err)) from None
     print(f"wrote {args.out}: {ds.sizes['case']} cases x {ds.sizes['progress']} progress levels")
     return 0
 
@@ -57,8 +60,11 @@ def cmd_rank(args) -> int:
         negligible = float(_config(args.config)["reduction"]["negligible"]) if args.config else 1e-3
     if not 0 < negligible < 1:
         raise InputError("--negligible", f"must be between 0 and 1 (exclusive), got {negligible}")
-    ranking = rank.write_ranking(_existing(args.summary, "--summary"), args.files, args.table, args.out,
-                                 negligible, report=_say)
+    try:
+        ranking = rank.write_ranking(_existing(args.summary, "--summary"), args.files, args.table, args.out,
+                                     negligible, report=_say)
+    except ValueError as err:  # no usable case
+        raise InputError("files", str(err)) from None
     flagged = int(ranking["negative_entropy"].sum())
     print(f"wrote {args.table} and {args.out}: {ranking.sizes['reaction']} reactions over "
           f"{ranking.attrs['n_cases_used']} of {ranking.attrs['n_cases']} cases; "
