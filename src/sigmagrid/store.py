@@ -324,6 +324,7 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
     r = relaxation
     idx = np.asarray(sample_index, dtype=int)
     f32 = np.float32
+    sigma = reaction_state.entropy_production  # computed once: (time, reaction) arrays can be large
     n_species = len(species)
     mw = r.molecular_weights
     y = r.mass_fractions[idx]
@@ -369,9 +370,9 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
                          _attrs("mol m-3 s-1", "reverse rate of progress")),
         "net_rate": (("time", "reaction"), reaction_state.net_rate.astype(f32),
                      _attrs("mol m-3 s-1", "net rate of progress q_j")),
-        "entropy_production": (("time", "reaction"), reaction_state.entropy_production.astype(f32),
+        "entropy_production": (("time", "reaction"), sigma.astype(f32),
                                _attrs("W m-3 K-1", "entropy production density of each reaction A_j q_j / T")),
-        "entropy_production_total": ("time", reaction_state.entropy_production.sum(axis=1),
+        "entropy_production_total": ("time", sigma.sum(axis=1),
                                      _attrs("W m-3 K-1", "total entropy production density")),
         "entropy_produced": ("reaction", r.entropy_produced,
                              _attrs("J K-1", "entropy produced by each reaction: integral of V sigma_j dt "
