@@ -126,11 +126,33 @@ def _mark_ignition(ax, ds: xr.Dataset) -> None:
         ax.axvline(t_ign, color="0.35", lw=0.8, ls=":")
 
 
-def plot_entropy_production(ds: xr.Dataset, top: int = TOP_REACTIONS):
-    """Stacked sigma_j (top reactions, the rest grouped) on log axes, above the share of each in sigma.
+#: share of the entropy produced that the zoomed panel of the entropy-production figure holds
+WINDOW_SHARE = 0.8
 
-    On a log y axis the band thicknesses are not proportional to the parts; the share panel below
-    is linear and is the one to read for "which reaction".
+
+def production_window(t: np.ndarray, total: np.ndarray, share: float = WINDOW_SHARE) -> tuple[float, float]:
+    """The shortest time interval (s) in which ``share`` of the entropy is produced, padded by half
+    its width on each side. Where the entropy is made: on linear axes there, areas are entropy.
+    """
+    increments = np.concatenate([[0.0], np.cumsum(0.5 * (total[1:] + total[:-1]) * np.diff(t))])
+    if not increments[-1] > 0:
+        return float(t[0]), float(t[-1])
+    cumulative = increments / increments[-1]
+    ends = np.searchsorted(cumulative, cumulative + share).clip(0, t.size - 1)
+    usable = cumulative + share <= 1.0 + 1e-12
+    widths = np.where(usable, t[ends] - t, np.inf)
+    i = int(np.argmin(widths))
+    lo, hi = float(t[i]), float(t[ends[i]])
+    pad = 0.5 * max(hi - lo, 1e-300)
+    return max(float(t[0]), lo - pad), min(float(t[-1]), hi + pad)
+
+
+def plot_entropy_production(ds: xr.Dataset, top: int = TOP_REACTIONS):
+    """Stacked sigma_j (top reactions, the rest grouped) and the share of each in sigma.
+
+    Left, over log time: the whole path, sigma on a log axis (there band thicknesses are not
+    proportional to the parts; read the shares below it). Right, over linear time and sigma: the
+    shortest stretch in which 80 % of the entropy is produced, where each band's area is its entropy.
     """
     keep = _positive_time(ds)
     if keep.sum() < 3:
@@ -149,9 +171,13 @@ def plot_entropy_production(ds: xr.Dataset, top: int = TOP_REACTIONS):
     names = [labels[j] for j in idx] + [f"all other {sigma.shape[1] - idx.size} reactions"]
     colours = ps.SERIES[:idx.size] + [ps.REST]
     total = np.sum(parts, axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shares = [np.where(total > 0, p / total, np.nan) for p in parts]
 
     fig = ps.new_figure(*SIZE)
-    ax_s, ax_f = fig.subplots(2, 1, sharex=True, height_ratios=[3, 2])
+    (ax_s, ax_z), (ax_f, ax_zf) = fig.subplots(2, 2, height_ratios=[3, 2], width_ratios=[3, 2])
+    ax_s.sharex(ax_f)
+    ax_z.sharex(ax_zf)
     # log y: sigma spans many decades between induction and ignition; the top edge is the total
     ax_s.stackplot(t, parts, colors=colours, labels=names, lw=0)
     ax_s.plot(t, total, color=ps.OBSERVED, lw=0.8)
@@ -161,16 +187,27 @@ def plot_entropy_production(ds: xr.Dataset, top: int = TOP_REACTIONS):
     floor = max(float(np.nanmin(np.where(total > 0, total, np.inf))), peak * 1e-12)
     ax_s.set_ylim(floor, peak * 3)
     ax_s.set_ylabel(ps.axis_label("entropy production σ (stacked)", "W m-3 K-1"))
-    ax_s.set_title(_case_title(ds), fontsize=ps.FONT_SIZE + 1)
-    ax_s.grid(True, which="major", axis="y", color="0.9", lw=0.6)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        shares = [np.where(total > 0, p / total, np.nan) for p in parts]
+    ax_s.set_title("whole path, log time", fontsize=ps.FONT_SIZE, pad=14)
     ax_f.stackplot(t, shares, colors=colours, lw=0)
     ax_f.set_ylim(0, 1)
     ax_f.set_ylabel(ps.axis_label("share of σ", "1"))
     ax_f.set_xlabel(ps.axis_label("time since start", "s"))
-    for ax in (ax_s, ax_f):
+    lo, hi = production_window(t, total)
+    inside = (t >= lo) & (t <= hi)
+    ax_z.stackplot(t[inside], [p[inside] for p in parts], colors=colours, lw=0)
+    ax_z.set_ylim(0, None)
+    ax_z.set_title(f"zoom: {WINDOW_SHARE:.0%} of the entropy, linear time", fontsize=ps.FONT_SIZE, pad=14)
+    ax_zf.stackplot(t[inside], [f[inside] for f in shares], colors=colours, lw=0)
+    ax_zf.set_ylim(0, 1)
+    ax_zf.set_xlabel(ps.axis_label("time since start", "s"))
+    ax_z.ticklabel_format(axis="y", style="sci", scilimits=(-3, 4))
+    ax_zf.ticklabel_format(axis="x", style="sci", scilimits=(-3, 4), useOffset=False)
+    for ax in (ax_s, ax_f, ax_z, ax_zf):
         _mark_ignition(ax, ds)
+        ax.grid(True, which="major", axis="y", color="0.9", lw=0.6)
+    for ax in (ax_s, ax_z):
+        ax.tick_params(labelbottom=False)
+    fig.suptitle(_case_title(ds), fontsize=ps.FONT_SIZE + 1)
     handles, texts = ax_s.get_legend_handles_labels()
     if np.isfinite(float(ds.get("ignition_delay", np.nan))):
         handles.append(Line2D([], [], color="0.35", lw=0.8, ls=":"))
@@ -305,29 +342,32 @@ def _sample_progress(ds: xr.Dataset) -> np.ndarray:
 
 
 def plot_sea_paths(ds: xr.Dataset):
-    """Potential and temperature against log time after the SEA start, observed and each SEA path.
+    """Potential and temperature against log time since lambda_0, observed and each SEA path.
 
-    The SEA paths start from the observed state at progress lambda_0, at time t_0; the axis is
-    t - t_0 so every path starts at the left edge and the induction before t_0 (where the
-    observed entropy barely moves) does not take most of the axis.
+    Every path is drawn on its own clock from the moment it has progress lambda_0 (the SEA start):
+    the SEA paths start from the observed state there, and a metric's time scale is its own, so
+    only the time taken from that common state can be compared. The observed path is taken on the
+    same progress grid (``observed_time``, ``observed_temperature``) where the file has it.
     """
     view = sea_view(ds)
     t = np.asarray(ds["time"].values, dtype=float)
     phi = np.asarray(ds["potential"].values, dtype=float)
     lam = _sample_progress(ds)
+    temperature = np.asarray(ds["temperature"].values, dtype=float)
     phi0 = phi[0]
     # the SEA paths are stored on a progress grid: Phi = Phi0 + lambda (Phi_eq - Phi0)
     ok = np.isfinite(lam) & (lam > 0.5)
     span = float(np.median((phi[ok] - phi0) / lam[ok])) if ok.any() else np.nan
-    starts = view.time[:, 0][np.isfinite(view.time[:, 0])]
-    if "observed_time" in ds and np.isfinite(ds["observed_time"].values[0]):
-        t0 = float(ds["observed_time"].values[0])
-    elif starts.size:
-        t0 = float(starts.min())
-    else:
-        raise Skipped("no steepest-ascent path has a start time")
-    after = t > t0
-    temperature = np.asarray(ds["temperature"].values, dtype=float)
+    if "observed_time" in ds and np.isfinite(ds["observed_time"].values).sum() >= 2:
+        obs_t = np.asarray(ds["observed_time"].values, dtype=float)
+        obs_phi = span * view.progress
+        obs_T = (np.asarray(ds["observed_temperature"].values, dtype=float) if "observed_temperature" in ds
+                 else np.interp(obs_t, t, temperature))
+        first = np.flatnonzero(np.isfinite(obs_t))[0]
+        obs_dt = obs_t - obs_t[first]
+    else:  # the samples after the first one at or above lambda_0
+        start = int(np.searchsorted(lam, view.progress[0]))
+        obs_dt, obs_phi, obs_T = t - t[min(start, t.size - 1)], phi - phi0, temperature
     # the isothermal reactor holds T: a flat temperature panel would say nothing
     held = ds.attrs.get("reactor") == "isothermal"
     fig = ps.new_figure(*SIZE)
@@ -335,11 +375,14 @@ def plot_sea_paths(ds: xr.Dataset):
         ax_s, ax_t = fig.subplots(), None
     else:
         ax_s, ax_t = fig.subplots(2, 1, sharex=True)
-        ax_t.plot(t[after] - t0, temperature[after], color=ps.OBSERVED, lw=2.2)
-    ax_s.plot(t[after] - t0, phi[after] - phi0, color=ps.OBSERVED, lw=2.2, label="observed (Cantera kinetics)")
+    good = np.isfinite(obs_dt) & (obs_dt > 0)
+    ax_s.plot(obs_dt[good], obs_phi[good], color=ps.OBSERVED, lw=2.2, label="observed (Cantera kinetics)")
+    if ax_t is not None:
+        ax_t.plot(obs_dt[good], obs_T[good], color=ps.OBSERVED, lw=2.2)
     drawn = 0
     for i, metric in enumerate(view.metrics):
-        dt = view.time[i] - t0
+        finite = np.flatnonzero(np.isfinite(view.time[i]))
+        dt = view.time[i] - (view.time[i][finite[0]] if finite.size else np.nan)
         good = np.isfinite(dt) & np.isfinite(view.temperature[i]) & (dt > 0)
         colour, style = ps.LINE_SERIES[i % len(ps.LINE_SERIES)], ps.LINESTYLES[i % len(ps.LINESTYLES)]
         label = f"SEA, {metric}" + ("" if view.status[i] in ("ok", "?") else f" ({view.status[i]})")
@@ -352,7 +395,7 @@ def plot_sea_paths(ds: xr.Dataset):
             ax_t.plot(dt[good], view.temperature[i][good], color=colour, ls=style, lw=1.6)
     ax_s.set_xscale("log")
     ax_s.set_ylabel(ps.axis_label(_potential_label(ds), "J K-1"))
-    x_label = ps.axis_label(f"time after the steepest-ascent start, t − t₀ (t₀ = {t0:.3g} s)", "s")
+    x_label = ps.axis_label(f"time since the path reached λ₀ = {view.progress[0]:.3g}", "s")
     if ax_t is None:
         ax_s.set_xlabel(x_label)
         ax_s.set_title(_case_title(ds) + f"; temperature held at {temperature[0]:.0f} K", fontsize=ps.FONT_SIZE + 1)
@@ -364,8 +407,7 @@ def plot_sea_paths(ds: xr.Dataset):
         if ax is not None:
             ax.grid(True, color="0.9", lw=0.6)
     fig.legend(*ax_s.get_legend_handles_labels(), loc="outside right upper", frameon=False,
-               fontsize=ps.FONT_SIZE - 1, title=f"path (from λ₀ = {view.progress[0]:.3g})",
-               title_fontsize=ps.FONT_SIZE - 1)
+               fontsize=ps.FONT_SIZE - 1, title="path", title_fontsize=ps.FONT_SIZE - 1)
     if drawn == 0:
         fig.text(0.5, 0.5, "no steepest-ascent path finished for this case", ha="center", fontsize=ps.FONT_SIZE + 2)
     return fig
