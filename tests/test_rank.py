@@ -20,7 +20,7 @@ import pandas as pd
 import pytest
 import xarray as xr
 
-from sigmagrid import config as config_mod, grid as grid_mod, progress, rank, runner, store
+from sigmagrid import config as config_mod, grid as grid_mod, mechanism, progress, rank, runner, store
 from sigmagrid.errors import InputError
 
 AIR = "O2:1, N2:3.76"
@@ -359,3 +359,17 @@ def test_cli_refuses_a_ranking_of_another_mechanism(reduced, tmp_path):
     done = run_cli("rank", str(tmp_path / "none.nc"), "--summary", str(results / "summary.nc"),
                    "--table", str(tmp_path / "r.csv"), "--out", str(tmp_path / "r.nc"))
     assert done.returncode == 2 and not (tmp_path / "r.csv").exists() and "Traceback" not in done.stderr
+
+
+def test_a_lone_duplicate_loses_its_flag(tmp_path):
+    # Cantera's 'duplicate' flag says another reaction has the same reactants and products; once
+    # the partner is cut the flag is false (readers such as Chemkin-format tools refuse it)
+    full = ct.Solution("h2o2.yaml")
+    dup = [j for j, r in enumerate(full.reactions()) if r.duplicate]
+    keep = np.ones(full.n_reactions, bool)
+    keep[dup[0]] = False  # cut one member of a pair
+    sol = rank.reduced_solution(mechanism.resolve("h2o2.yaml"), keep, list(full.species_names))
+    partner = full.reaction(dup[0]).equation
+    lone = [r for r in sol.reactions() if r.equation == partner]
+    assert len(lone) == 1 and not lone[0].duplicate
+    assert sum(r.duplicate for r in sol.reactions()) == len(dup) - 2

@@ -398,6 +398,16 @@ def reduced_solution(path: str | Path, keep: np.ndarray, species: list[str], nam
         if tb is not None and tb.efficiencies:
             tb.efficiencies = {k: v for k, v in tb.efficiencies.items() if k in kept_species}
         reactions.append(r)
+    # a declared duplicate whose partners were all cut is now unique; other readers refuse the flag
+    def sides(r):
+        return frozenset([tuple(sorted(r.reactants.items())), tuple(sorted(r.products.items()))])
+
+    count: dict = {}
+    for r in reactions:
+        count[sides(r)] = count.get(sides(r), 0) + 1
+    for r in reactions:
+        if r.duplicate and count[sides(r)] == 1:
+            r.duplicate = False
     transport = gas.transport_model if gas.transport_model not in ("none", "None", "", None) else None
     kwargs = {"transport_model": transport} if transport else {}
     with warnings.catch_warnings():
