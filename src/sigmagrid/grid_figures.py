@@ -39,7 +39,9 @@ class MapQuantity:
 
 MAP_QUANTITIES = {
     "ignition_delay": MapQuantity("ignition_delay", "ignition delay", "s", True),
-    "entropy_produced": MapQuantity("entropy_produced_total", "entropy produced", "J K-1", False),
+    # log colours: the entropy produced grows with the mass held, so with the pressure, and a linear
+    # scale would hide the variation with phi and T0 within a panel
+    "entropy_produced": MapQuantity("entropy_produced_total", "entropy produced", "J K-1", True),
     "time_to_90pct": MapQuantity("time_to_90pct", "time to 90 % progress", "s", True),
 }
 #: the summary variable of the SEA comparison mapped per metric, if present
