@@ -34,7 +34,8 @@ DEFAULTS: dict[str, Any] = {
                   "negative_entropy": "keep", "keep_species": [], "validate": True, "validation_cases": {},
                   "max_ignition_delay_error": 0.05, "max_equilibrium_temperature_error": 2.0,
                   "max_entropy_produced_error": 0.02},
-    "figures": {"cases": "all", "top_reactions": 6, "ranking_top": 12},
+    # at most 48 cases get per-case figures unless asked: a large grid would make a huge report
+    "figures": {"cases": 48, "top_reactions": 6, "ranking_top": 12},
 }
 
 
