@@ -277,6 +277,11 @@ def ranking_table(ranking: xr.Dataset) -> pd.DataFrame:
     """ranking.csv: one row per reaction, best first under the local criterion, flagged ones last."""
     r = ranking
     ranks = {c: r["rank"].sel(criterion=c).values for c in CRITERIA}
+    labels = dict(zip(r["case"].values.astype(str), r["label"].values.astype(str))) if "label" in r.coords else {}
+
+    def label_of(name):
+        return [labels.get(c, c) for c in r[name].values.astype(str)]
+
     df = pd.DataFrame({
         "reaction": r["reaction"].values.astype(str),
         "rank_local [1]": pd.array(np.where(np.isfinite(ranks["local"]), ranks["local"], np.nan), dtype="Int64"),
@@ -284,8 +289,10 @@ def ranking_table(ranking: xr.Dataset) -> pd.DataFrame:
         "rank_integrated_mean [1]": pd.array(ranks["integrated-mean"], dtype="Int64"),
         "local_share_max [1]": r["local_share_max"].values,
         "local_share_max_case": r["local_share_max_case"].values.astype(str),
+        "local_share_max_label": label_of("local_share_max_case"),
         "integrated_share_max [1]": r["integrated_share_max"].values,
         "integrated_share_max_case": r["integrated_share_max_case"].values.astype(str),
+        "integrated_share_max_label": label_of("integrated_share_max_case"),
         "integrated_share_mean [1]": r["integrated_share_mean"].values,
         "reversible": r["reversible"].values.astype(bool),
         "duplicate_group": r["duplicate_group"].values,
