@@ -286,3 +286,47 @@ def test_sea_figures_are_skipped_with_a_note_without_the_comparison(flow, tmp_pa
     assert [p.stem for p in written] == ["entropy_production", "affinity_rate"]
     assert any("sea_paths skipped: no steepest-entropy-ascent comparison" in n for n in notes), notes
     assert any("alignment skipped" in n for n in notes), notes
+
+
+def test_failed_case_gets_no_figures_and_a_note(flow, tmp_path):
+    case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
+    with xr.open_dataset(case) as ds:
+        failed = ds.load()
+    failed.attrs.update(status="failed", reason="made up for the test")
+    path = tmp_path / "failed.nc"
+    store.write_atomic(failed, path)
+    notes = []
+    assert figures.plot_case(path, tmp_path / "out", log=notes.append) == []
+    assert notes and "no figures: case failed (made up for the test)" in notes[0]
+    assert not list((tmp_path / "out").glob("*.png"))
+
+
+def test_map_marks_missing_and_unrelaxed_cases(tmp_path):
+    # a synthetic summary: 2 reactors x 3 pressures, 2 x 2 cells, one NaN, one case not relaxed
+    rows = [(r, p, phi, t) for r in ("isolated", "isothermal") for p in (1e5, 5e5, 1e6)
+            for phi in (0.8, 1.6) for t in (900.0, 1300.0)]
+    n = len(rows)
+    status = np.array(["relaxed"] * n, dtype=object)
+    status[3] = "not-relaxed"
+    values = np.geomspace(1e-5, 1e-2, n)
+    values[5] = np.nan
+    summary = xr.Dataset(
+        {"entropy_produced": (("case", "reaction"), np.ones((n, 1)))},
+        coords={"case": np.arange(n).astype(str), "reactor": ("case", [r[0] for r in rows]),
+                "initial_pressure": ("case", [r[1] for r in rows]),
+                "equivalence_ratio": ("case", [r[2] for r in rows]),
+                "initial_temperature": ("case", [r[3] for r in rows]), "status": ("case", status.astype(str))})
+    fig = grid_figures.plot_map(summary, values, "ignition delay", "s", log=True)
+    texts = [t.get_text() for ax in fig.axes for t in ax.texts] + [t.get_text() for t in fig.texts]
+    assert sum(t == "n/a" for t in texts) == 1
+    assert sum(t.endswith(" *") for t in texts) == 1
+    assert any("did not relax" in t for t in texts)
+    path = plotstyle.save(fig, tmp_path / "map.png")
+    assert_image(path, grid_figures.map_size(2, 3))
+
+
+def test_grid_figures_refuse_a_case_file(flow, tmp_path):
+    case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
+    done = run_cli("plot-grid", str(case), "--out", str(tmp_path / "g"))
+    assert done.returncode == 2 and done.stderr.startswith("sigmagrid: error: SUMMARY: ")
+    assert "sigmagrid plot" in done.stderr and not (tmp_path / "g").exists()
