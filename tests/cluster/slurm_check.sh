@@ -7,6 +7,7 @@ set -euo pipefail
 REPO="$(cd "$(dirname "$0")/../.." && pwd)"
 PY="${PYTHON:-$REPO/.venv/bin/python}"
 [ -x "$PY" ] || PY="$(command -v python3)"
+PY="$(cd "$(dirname "$PY")" && pwd)/$(basename "$PY")"  # absolute: the runs below change folder
 WORK="$(mktemp -d /tmp/sigmagrid-slurm.XXXXXX)"
 echo "slurm check: work folder $WORK"
 
