@@ -152,7 +152,7 @@ def mutate(kind: str, rng: random.Random, outside_mechanism: str = "") -> tuple[
         _set(raw, path, TOO_BIG[path] * rng.choice([1, 10, 1000]))
         return raw, {path}
     if kind == "huge-grid":
-        n_t, n_p = rng.randint(60, 300), rng.randint(60, 300)
+        n_t, n_p = rng.randint(58, 90), rng.randint(58, 90)  # > 20000 cases with 2 reactors x 3 mixtures
         raw["temperature"] = [800.0 + 5.0 * i for i in range(n_t)]
         raw["pressure"] = [1e5 + 1e3 * i for i in range(n_p)]
         raw["batch"].pop("max_cases")  # the default limit, 20000
@@ -283,7 +283,10 @@ def _write(folder, raw) -> str:
 
 
 # The plain command accepts a mechanism anywhere (only the workflow insists on the project folder).
-CLI_SAMPLE = [(kind, seed) for seed, kind in enumerate(KINDS) if kind != "outside-project"]
+CLI_SAMPLE = [(kind, seed) for seed, kind in enumerate(KINDS)
+              if kind in ("wrong-type", "missing-key", "unknown-key", "not-finite", "empty-list", "zero-or-negative",
+                          "huge-grid", "unknown-species", "bad-composition", "duplicate-axis", "special-path",
+                          "missing-path", "not-a-mapping")]
 
 
 @pytest.mark.parametrize("kind,seed", CLI_SAMPLE)
@@ -303,8 +306,7 @@ def test_the_command_refuses_with_one_line_and_writes_nothing(tmp_path, project,
     count_tried("hostile configs, through `sigmagrid run`")
 
 
-WORKFLOW_SAMPLE = ["wrong-type", "not-finite", "huge-grid", "unknown-species", "outside-project",
-                   "duplicate-case"]
+WORKFLOW_SAMPLE = ["not-finite", "unknown-species", "outside-project"]
 
 
 @pytest.mark.parametrize("kind", WORKFLOW_SAMPLE)

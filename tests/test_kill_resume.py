@@ -1,6 +1,7 @@
 """Kill the workflow with SIGKILL while it writes case files, rerun it, lose nothing.
 
-Reference: an uninterrupted run of the same config in another folder. The resumed results must be
+Reference: an uninterrupted run of the same config in another folder, by ``runner.run_grid`` (the
+library without Snakemake: an independent path to the same files). The resumed results must be
 numerically identical to it, case by case (every variable except ``wall_time``, every attribute
 except the creation stamp ``history``), every file must open, and no temporary file may be left.
 """
@@ -21,6 +22,7 @@ import xarray as xr
 import yaml
 
 from conftest import REPO, count_tried, without_sea
+from sigmagrid import config as config_mod, runner
 
 GRID = without_sea({
     "study": "steam-reformer afterburner, kill test",
@@ -96,9 +98,8 @@ def _same_case(a: xr.Dataset, b: xr.Dataset, name: str) -> None:
 
 @pytest.fixture(scope="module")
 def reference(tmp_path_factory):
-    folder = _project(tmp_path_factory.mktemp("uninterrupted"))
-    done = _snakemake(folder)
-    assert done.returncode == 0, done.stderr[-3000:]
+    folder = tmp_path_factory.mktemp("uninterrupted")
+    runner.run_grid(config_mod.validate(GRID), folder / "results", report=lambda line: None)
     return folder
 
 
