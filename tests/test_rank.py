@@ -373,3 +373,15 @@ def test_a_lone_duplicate_loses_its_flag(tmp_path):
     lone = [r for r in sol.reactions() if r.equation == partner]
     assert len(lone) == 1 and not lone[0].duplicate
     assert sum(r.duplicate for r in sol.reactions()) == len(dup) - 2
+
+
+def test_query_by_local_share_agrees_with_the_ranking(reduced):
+    from sigmagrid import query
+
+    _, results, _ = reduced
+    r = _ranking(results)
+    everything = query.top_reactions_local(r, None, n=r.sizes["reaction"]).set_index("reaction_index")
+    assert np.allclose(everything["local_share_max [1]"].sort_index(), r["local_share_max"].values, equal_nan=True)
+    iso = query.top_reactions_local(r, {"reactor": "isolated"}, n=r.sizes["reaction"]).set_index("reaction_index")
+    assert (iso["local_share_max [1]"].sort_index().fillna(0) <= r["local_share_max"].fillna(0).values + 1e-15).all()
+    assert set(iso["case_of_max"]) - {""} <= {str(x) for x in r["label"].values if str(x).startswith("isolated")}

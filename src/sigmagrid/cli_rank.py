@@ -159,7 +159,12 @@ def cmd_query_top(args) -> int:
     from . import query
 
     selection = query.parse_selection(args.select)
-    if args.at is not None:
+    if args.by == "local":
+        r = query.open_dataset(args.ranking, "--ranking")
+        table = query.top_reactions_local(r, selection, args.n)
+        note = (f"# top {len(table)} reactions by largest local share sigma_j/sigma over {table.attrs['cases']} "
+                "case(s); reactions that consume entropy last")
+    elif args.at is not None:
         p = query.open_dataset(args.progress, "--progress")
         table = query.top_reactions_at(p, args.at, selection, args.n)
         note = f"# top {len(table)} reactions by share of the entropy production at progress {table.attrs['progress']:g}"
@@ -263,7 +268,10 @@ def add_commands(sub) -> None:
     p = qs.add_parser("top", help="reactions that produce the most entropy over selected cases")
     p.add_argument("--summary", default="results/summary.nc")
     p.add_argument("-n", type=int, default=10, help="how many reactions (default 10)")
-    p.add_argument("--by", default="mean", choices=("mean", "max"), help="mean or largest share over the cases")
+    p.add_argument("--by", default="mean", choices=("mean", "max", "local"),
+                   help="mean or largest integrated share over the cases, or the largest local share "
+                        "(from --ranking)")
+    p.add_argument("--ranking", default="results/ranking.nc", help="ranking file, for --by local")
     p.add_argument("--at", type=float, default=None, metavar="LEVEL",
                    help="rank by the local share at this progress level (0..1) instead, from --progress")
     _query_common(p, progress=True)

@@ -198,6 +198,36 @@ def top_reactions(summary: xr.Dataset, selection: Mapping[str, Any] | None = Non
     return table
 
 
+def top_reactions_local(ranking: xr.Dataset, selection: Mapping[str, Any] | None = None,
+                        n: int = 10) -> pd.DataFrame:
+    """The reactions with the largest local share over the selected cases (EPA criterion).
+
+    ``ranking`` is ``results/ranking.nc``; its ``local_share`` (case, reaction) is the largest
+    sigma_j / sigma along each path where sigma is not negligible (see :mod:`sigmagrid.rank`).
+    Columns: largest local share over the selection [1], the case label where it occurs, and
+    whether the reaction consumes entropy somewhere in the grid (flagged, never ranked there).
+    """
+    r = select(ranking, selection)
+    local = r["local_share"].values.astype(float)
+    if not np.isfinite(local).any():
+        raise InputError("--select", "none of the selected cases was usable for the ranking")
+    finite = np.isfinite(local).any(axis=0)
+    best = np.where(finite, np.nanargmax(np.where(np.isfinite(local), local, -np.inf), axis=0), 0)
+    labels = r["label"].values.astype(str) if "label" in r.coords else r["case"].values.astype(str)
+    table = pd.DataFrame({
+        "reaction": r["reaction"].values.astype(str),
+        "reaction_index": np.arange(r.sizes["reaction"]),
+        "local_share_max [1]": np.where(finite, local[best, np.arange(local.shape[1])], np.nan),
+        "case_of_max": np.where(finite, labels[best], ""),
+        "negative_entropy": r["negative_entropy"].values.astype(bool),
+    })
+    table = table.sort_values(["negative_entropy", "local_share_max [1]"], ascending=[True, False],
+                              kind="stable").head(n).reset_index(drop=True)
+    table.insert(0, "rank [1]", np.arange(1, len(table) + 1))
+    table.attrs["cases"] = int(r.sizes["case"])
+    return table
+
+
 def top_reactions_at(progress: xr.Dataset, level: float, selection: Mapping[str, Any] | None = None,
                      n: int = 10) -> pd.DataFrame:
     """The reactions with the largest share sigma_j / sigma at one progress level, over the selection.
