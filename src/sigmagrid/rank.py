@@ -512,19 +512,22 @@ def write_cuts(config: dict, ranking: xr.Dataset, out_dir: str | Path,
 
 #: What a cut costs, per case: name -> (units, long name).
 ERRORS = {
-    "ignition_delay_error": ("1", "relative error of the ignition delay |tau_cut - tau| / tau"),
+    "ignition_delay_error": ("1", "relative error of the ignition delay |tau_cut - tau| / tau (NaN where neither "
+                                  "ignites, inf where only one does)"),
     "equilibrium_temperature_error": ("K", "absolute error of the equilibrium temperature"),
     "entropy_produced_error": ("1", "relative error of the total entropy produced"),
 }
 
 
 def _relative(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """|a - b| / |b|; 0 where both are NaN (nothing to compare), inf where only one is."""
+    """|a - b| / |b|; NaN where both are missing (nothing to compare, e.g. no ignition in an
+    isothermal reactor), inf where only one is (the cut ignites where the full mechanism does not,
+    or the other way round)."""
     with np.errstate(invalid="ignore", divide="ignore"):
         err = np.abs(a - b) / np.abs(b)
     both = ~np.isfinite(a) & ~np.isfinite(b)
     one = np.isfinite(a) != np.isfinite(b)
-    return np.where(both, 0.0, np.where(one, np.inf, err))
+    return np.where(both, np.nan, np.where(one, np.inf, err))
 
 
 def _physical_key(reactor, name, temperature, pressure) -> tuple:
