@@ -330,3 +330,24 @@ def test_grid_figures_refuse_a_case_file(flow, tmp_path):
     done = run_cli("plot-grid", str(case), "--out", str(tmp_path / "g"))
     assert done.returncode == 2 and done.stderr.startswith("sigmagrid: error: SUMMARY: ")
     assert "sigmagrid plot" in done.stderr and not (tmp_path / "g").exists()
+
+
+@pytest.mark.parametrize("args, field", [
+    (["--ranking", "results/summary.nc"], "--ranking"),
+    (["--reduction", "results/no-such-file.nc"], "--reduction"),
+    (["--out", "results/summary.nc"], "--out"),
+])
+def test_plot_grid_refuses_bad_inputs_before_writing(flow, args, field):
+    out = ["--out", "results/never"] if "--out" not in args else []
+    done = run_cli("plot-grid", "results/summary.nc", *out, *args, cwd=flow)
+    assert done.returncode == 2, done.stderr
+    assert done.stderr.startswith(f"sigmagrid: error: {field}: ") and len(done.stderr.strip().splitlines()) == 1
+    assert not (flow / "results" / "never").exists()
+
+
+def test_plot_grid_reads_the_csv_tables_too(flow, tmp_path):
+    done = run_cli("plot-grid", "results/summary.nc", "--out", str(tmp_path), "--ranking", "results/ranking.csv",
+                   "--reduction", "results/reduction.csv", cwd=flow)
+    assert done.returncode == 0, done.stderr
+    assert_image(tmp_path / "ranking.png", grid_figures.RANKING_SIZE)
+    assert_image(tmp_path / "cuts.png", grid_figures.CUTS_SIZE)

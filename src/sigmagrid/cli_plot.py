@@ -18,13 +18,20 @@ def _say(line: str) -> None:
     print(line, flush=True)
 
 
+def _out_folder(path: Path) -> Path:
+    """The figures' folder: refuse a path that exists as something other than a folder."""
+    if path.exists() and not path.is_dir():
+        raise InputError("--out", f"'{path}' exists and is not a folder")
+    return path
+
+
 def cmd_plot(args) -> int:
     from . import figures
 
     if args.top < 1:
         raise InputError("--top", f"must be at least 1, got {args.top}")
     ds = figures.open_case_file(args.file)  # refuses a file that is not a case file, before any output
-    out = Path(args.out) if args.out else Path("figures") / ds.attrs["case_id"]
+    out = _out_folder(Path(args.out) if args.out else Path("figures") / ds.attrs["case_id"])
     figures.plot_case(args.file, out, top=args.top, log=_say)
     return 0
 
@@ -32,7 +39,7 @@ def cmd_plot(args) -> int:
 def cmd_plot_grid(args) -> int:
     from . import grid_figures
 
-    grid_figures.plot_grid(args.summary, args.out, ranking=args.ranking, reduction=args.reduction,
+    grid_figures.plot_grid(args.summary, _out_folder(Path(args.out)), ranking=args.ranking, reduction=args.reduction,
                            top=args.top, log=_say)
     return 0
 

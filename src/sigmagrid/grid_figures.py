@@ -200,7 +200,7 @@ def _read_table(path: str | Path, field: str) -> pd.DataFrame:
     """A ranking or reduction table from its .nc or .csv; csv column units '[..]' are dropped."""
     path = Path(path)
     if not path.is_file():
-        raise Skipped(f"{path} not found")
+        raise InputError(field, f"'{path}' does not exist")
     try:
         if path.suffix == ".nc":
             with xr.open_dataset(path) as ds:
@@ -214,7 +214,13 @@ def _read_table(path: str | Path, field: str) -> pd.DataFrame:
 
 def _ranking_frame(source) -> pd.DataFrame:
     """reaction, local_share_max, integrated_share_max, integrated_share_mean, rank_local, flagged."""
+    if isinstance(source, pd.DataFrame) and source.attrs.get("normalized"):
+        return source
     if isinstance(source, xr.Dataset):
+        need = ["local_share_max", "integrated_share_max", "integrated_share_mean", "rank", "negative_entropy"]
+        if any(v not in source for v in need) or "reaction" not in source.dims:
+            raise InputError("--ranking", "is not a ranking file (ranking.nc from 'sigmagrid rank'): it lacks "
+                             + ", ".join(v for v in need if v not in source))
         frame = pd.DataFrame({
             "reaction": source["reaction"].values.astype(str),
             "local_share_max": source["local_share_max"].values,
@@ -228,9 +234,10 @@ def _ranking_frame(source) -> pd.DataFrame:
         need = ["reaction", "local_share_max", "integrated_share_max", "integrated_share_mean", "rank_local"]
         missing = [c for c in need if c not in frame]
         if missing:
-            raise Skipped(f"ranking table lacks {', '.join(missing)}")
+            raise InputError("--ranking", f"is not a ranking table (ranking.csv): it lacks {', '.join(missing)}")
         frame["negative_entropy"] = frame.get("negative_entropy", False)
         frame["index"] = np.nan  # csv rows are sorted by rank: the mechanism order is not known
+    frame.attrs["normalized"] = True
     return frame
 
 
@@ -275,7 +282,13 @@ _ERROR_PANELS = (("ignition_delay_error", "ignition delay, relative error", "1")
 
 
 def _cuts_frame(source) -> pd.DataFrame:
+    if isinstance(source, pd.DataFrame) and source.attrs.get("normalized"):
+        return source
     if isinstance(source, xr.Dataset):
+        need = ["criterion", "threshold", "n_reactions", "n_species"] + [f"{k}_max" for k, _, _ in _ERROR_PANELS]
+        if any(v not in source for v in need) or "cut" not in source.dims:
+            raise InputError("--reduction", "is not a reduction file (reduction.nc from 'sigmagrid cut-report'): "
+                             "it lacks " + ", ".join(v for v in need if v not in source))
         frame = pd.DataFrame({"cut": source["cut"].values.astype(str),
                               "criterion": source["criterion"].values.astype(str),
                               "threshold": source["threshold"].values.astype(float),
@@ -286,9 +299,10 @@ def _cuts_frame(source) -> pd.DataFrame:
         frame = source.rename(columns={"reactions": "reactions", "species": "species"}).copy()
         missing = [c for c in ["criterion", "threshold", "reactions", "species"] if c not in frame]
         if missing:
-            raise Skipped(f"reduction table lacks {', '.join(missing)}")
+            raise InputError("--reduction", f"is not a reduction table (reduction.csv): it lacks {', '.join(missing)}")
         tolerances = {k: np.nan for k, _, _ in _ERROR_PANELS}
     frame.attrs["tolerances"] = tolerances
+    frame.attrs["normalized"] = True
     return frame
 
 
@@ -364,7 +378,6 @@ def plot_grid(summary_path: str | Path, out_dir: str | Path, ranking: str | Path
     if top < 1:
         raise InputError("--top", f"must be at least 1, got {top}")
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
     jobs: list[tuple[str, str, Callable]] = []
     for name, q in MAP_QUANTITIES.items():
         values = summary[q.variable].values.astype(float) if q.variable in summary else None
@@ -381,17 +394,19 @@ def plot_grid(summary_path: str | Path, out_dir: str | Path, ranking: str | Path
         for m in summary["metric"].values.astype(str):
             jobs.append((f"map_path_angle_{m}", f"Map of the largest SEA path angle, {m}",
                          lambda m=m: plot_map(summary, var.sel(metric=m).values.astype(float),
-                                              f"largest path angle, metric {m}", "rad", False)))
+                                              f"largest SEA path angle ({m} metric)", "rad", False)))
     if ranking is None:
         log("ranking skipped: no ranking file given (results/ranking.nc from the ranking step)")
     else:
-        jobs.append(("ranking", "Ranking of reactions by entropy produced",
-                     lambda: plot_ranking(_read_table(ranking, "--ranking"), top)))
+        ranks = _ranking_frame(_read_table(ranking, "--ranking"))
+        jobs.append(("ranking", "Ranking of reactions by entropy produced", lambda: plot_ranking(ranks, top)))
     if reduction is None:
         log("cuts skipped: no reduction file given (results/reduction.nc from the cut step)")
     else:
+        cut_table = _cuts_frame(_read_table(reduction, "--reduction"))
         jobs.append(("cuts", "Reduced mechanisms: size against error",
-                     lambda: plot_cuts(_read_table(reduction, "--reduction"), summary.sizes["reaction"])))
+                     lambda: plot_cuts(cut_table, summary.sizes["reaction"])))
+    out_dir.mkdir(parents=True, exist_ok=True)  # only once every input has been read
     written = []
     for name, title, make in jobs:
         try:
