@@ -83,7 +83,8 @@ def open_case_file(path: str | Path) -> xr.Dataset:
             ds = opened.load()
     except Exception as err:  # noqa: BLE001 - any reader error means "not a netCDF file we can read"
         raise InputError("FILE", f"'{path}' is not a readable netCDF file ({type(err).__name__})") from None
-    needed = ("entropy_production", "net_rate", "forward_rate", "affinity", "temperature", "potential")
+    needed = ("entropy_production", "entropy_production_total", "entropy_produced", "net_rate", "forward_rate",
+              "reverse_rate", "affinity", "temperature", "potential")
     if "case_id" not in ds.attrs or any(v not in ds for v in needed):
         hint = " (it is a grid summary: plot it with 'sigmagrid plot-grid')" \
             if "case" in ds.dims else ""
@@ -193,15 +194,27 @@ def plot_entropy_production(ds: xr.Dataset, top: int = TOP_REACTIONS):
     ax_f.set_ylabel(ps.axis_label("share of σ", "1"))
     ax_f.set_xlabel(ps.axis_label("time since start", "s"))
     lo, hi = production_window(t, total)
+    # a single burst is best seen on linear time; a window spanning decades (a two-stage path) on
+    # log time with sigma t, whose area per unit ln t is again the entropy produced
+    burst = hi < 3 * lo
+    if not burst:
+        lo, hi = float(t[0]), float(t[-1])
     inside = (t >= lo) & (t <= hi)
-    ax_z.stackplot(t[inside], [p[inside] for p in parts], colors=colours, lw=0)
+    weight = np.ones_like(t) if burst else t
+    ax_z.stackplot(t[inside], [p[inside] * weight[inside] for p in parts], colors=colours, lw=0)
     ax_z.set_ylim(0, None)
-    ax_z.set_title(f"zoom: {WINDOW_SHARE:.0%} of the entropy, linear time", fontsize=ps.FONT_SIZE, pad=14)
     ax_zf.stackplot(t[inside], [f[inside] for f in shares], colors=colours, lw=0)
     ax_zf.set_ylim(0, 1)
     ax_zf.set_xlabel(ps.axis_label("time since start", "s"))
+    if burst:
+        ax_z.set_title(f"zoom: {WINDOW_SHARE:.0%} of the entropy, linear time", fontsize=ps.FONT_SIZE, pad=14)
+        ax_z.set_ylabel(ps.axis_label("σ (stacked)", "W m-3 K-1"))
+        ax_zf.ticklabel_format(axis="x", style="sci", scilimits=(-3, 4), useOffset=False)
+    else:
+        ax_z.set_title("σ·t on log time: area = entropy produced", fontsize=ps.FONT_SIZE, pad=14)
+        ax_z.set_ylabel(ps.axis_label("σ·t (stacked)", "J m-3 K-1"))
+        ax_z.set_xscale("log")
     ax_z.ticklabel_format(axis="y", style="sci", scilimits=(-3, 4))
-    ax_zf.ticklabel_format(axis="x", style="sci", scilimits=(-3, 4), useOffset=False)
     for ax in (ax_s, ax_f, ax_z, ax_zf):
         _mark_ignition(ax, ds)
         ax.grid(True, which="major", axis="y", color="0.9", lw=0.6)
