@@ -150,10 +150,31 @@ def _numbers_from_text(node: Any, key: str = "") -> Any:
     return node
 
 
+#: Most values (keys, list items, leaves) a config may hold; shared references count every time.
+MAX_CONFIG_NODES = 200_000
+
+
+def _node_count(node: Any) -> int:
+    """Values in a nested config, counted without recursion and stopping past the limit."""
+    count, stack = 0, [node]
+    while stack and count <= MAX_CONFIG_NODES:
+        item = stack.pop()
+        count += 1
+        if isinstance(item, dict):
+            stack.extend(item.values())
+            count += len(item)
+        elif isinstance(item, list):
+            stack.extend(item)
+    return count
+
+
 def validate(raw: Any) -> dict:
     """Schema-check a config mapping and fill in the defaults. Raises InputError."""
     if not isinstance(raw, dict):
         raise InputError("config", f"must be a mapping of keys to values, got {type(raw).__name__}")
+    if _node_count(raw) > MAX_CONFIG_NODES:
+        raise InputError("config", f"holds more than {MAX_CONFIG_NODES} values (repeated references?); "
+                         "a grid config lists a few axes")
     try:
         raw = _numbers_from_text(raw)
         _reject_non_finite(raw)
