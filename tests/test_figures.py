@@ -6,6 +6,7 @@ the PNG signature of the PNG specification (ISO/IEC 15948, W3C PNG 2nd ed., sect
 
 from __future__ import annotations
 
+import itertools
 import json
 import re
 import subprocess
@@ -351,3 +352,71 @@ def test_plot_grid_reads_the_csv_tables_too(flow, tmp_path):
     assert done.returncode == 0, done.stderr
     assert_image(tmp_path / "ranking.png", grid_figures.RANKING_SIZE)
     assert_image(tmp_path / "cuts.png", grid_figures.CUTS_SIZE)
+
+
+def _text_boxes(fig):
+    """Window extents of every visible text of a drawn figure: titles, labels, drawn tick labels,
+    legend entries, annotations."""
+    import io
+
+    fig.savefig(io.BytesIO(), format="png")  # lays the figure out as it is saved
+    renderer = fig._get_renderer()
+    boxes = []
+
+    def add(text):
+        if text.get_visible() and text.get_text().strip():
+            boxes.append((text.get_text(), text.get_window_extent(renderer)))
+
+    for text in fig.texts:
+        add(text)
+    for legend in fig.legends:
+        for text in [*legend.get_texts(), legend.get_title()]:
+            add(text)
+    for ax in fig.axes:
+        if not ax.get_visible():
+            continue
+        for text in (ax.title, ax.xaxis.label, ax.yaxis.label, ax.xaxis.get_offset_text(), ax.yaxis.get_offset_text(),
+                     *ax.texts):
+            add(text)
+        for axis in (ax.xaxis, ax.yaxis):
+            low, high = sorted(axis.get_view_interval())
+            for tick in axis._update_ticks():  # the ticks drawn, with their current positions
+                if low <= tick.get_loc() <= high:
+                    add(tick.label1)
+                    add(tick.label2)
+    return boxes
+
+
+def assert_no_overlap(fig, name):
+    boxes = _text_boxes(fig)
+    clash = [(a, b) for (a, ba), (b, bb) in itertools.combinations(boxes, 2)
+             if ba.x0 + 1 < bb.x1 - 1 and bb.x0 + 1 < ba.x1 - 1 and ba.y0 + 1 < bb.y1 - 1 and bb.y0 + 1 < ba.y1 - 1]
+    assert not clash, f"{name}: overlapping labels {clash[:3]}"
+
+
+def test_no_label_runs_into_another(flow, sea_case_file):
+    for path in (sea_case_file, sorted((flow / "results" / "cases").glob("*.nc"))[0]):
+        ds = figures.open_case_file(path)
+        for name, plotter in figures._PLOTTERS.items():
+            try:
+                fig = plotter(ds)
+            except figures.Skipped:
+                continue
+            assert_no_overlap(fig, name)
+    results = flow / "results"
+    summary = grid_figures.open_summary(results / "summary.nc")
+    for name, q in grid_figures.MAP_QUANTITIES.items():
+        assert_no_overlap(grid_figures.plot_map(summary, summary[q.variable].values.astype(float), q.title, q.units,
+                                                q.log), name)
+    assert_no_overlap(grid_figures.plot_ranking(grid_figures._read_table(results / "ranking.nc", "r")), "ranking")
+    assert_no_overlap(grid_figures.plot_cuts(grid_figures._read_table(results / "reduction.nc", "r"),
+                                             summary.sizes["reaction"]), "cuts")
+
+
+def test_overlap_check_sees_an_overlap():
+    fig = plotstyle.new_figure(400, 300)
+    ax = fig.subplots()
+    ax.text(0.5, 0.5, "first label")
+    ax.text(0.52, 0.5, "second label")
+    with pytest.raises(AssertionError, match="overlapping labels"):
+        assert_no_overlap(fig, "made up")
