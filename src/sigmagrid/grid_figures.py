@@ -22,6 +22,7 @@ import pandas as pd
 import xarray as xr
 from matplotlib import colormaps
 from matplotlib.colors import LogNorm, Normalize
+from matplotlib.lines import Line2D
 from matplotlib.ticker import MaxNLocator
 
 from . import plotstyle as ps
@@ -293,10 +294,11 @@ def _cuts_frame(source) -> pd.DataFrame:
                               "criterion": source["criterion"].values.astype(str),
                               "threshold": source["threshold"].values.astype(float),
                               "reactions": source["n_reactions"].values, "species": source["n_species"].values,
+                              "failed": source["failed_cases"].values if "failed_cases" in source else 0,
                               **{f"{k}_max": source[f"{k}_max"].values for k, _, _ in _ERROR_PANELS}})
         tolerances = {k: source.attrs.get(f"tolerance_{k}", np.nan) for k, _, _ in _ERROR_PANELS}
     else:
-        frame = source.rename(columns={"reactions": "reactions", "species": "species"}).copy()
+        frame = source.rename(columns={"failed_cases": "failed"}).copy()
         missing = [c for c in ["criterion", "threshold", "reactions", "species"] if c not in frame]
         if missing:
             raise InputError("--reduction", f"is not a reduction table (reduction.csv): it lacks {', '.join(missing)}")
@@ -306,17 +308,22 @@ def _cuts_frame(source) -> pd.DataFrame:
     return frame
 
 
-def _label_cuts(ax, part: pd.DataFrame, shown: np.ndarray, colour: str, series: int) -> None:
-    """Threshold and species kept beside each point; alternately above and below, turned inwards
-    near the right edge, so that neighbouring cuts do not print over each other."""
+def _label_cuts(ax, part: pd.DataFrame, shown: np.ndarray, colour: str, series: int, on_edge: np.ndarray) -> None:
+    """Threshold and species kept beside each point; alternately above and below (always above for
+    a point on the bottom edge), turned inwards near the right edge, so that neighbouring cuts do
+    not print over each other."""
     x_max = float(part["reactions"].max())
-    for n, (x, y, thr, species) in enumerate(zip(part["reactions"], shown, part["threshold"], part["species"])):
+    failed = part["failed"].to_numpy(int) if "failed" in part else np.zeros(len(part), int)
+    for n, (x, y, thr, species, bad) in enumerate(zip(part["reactions"], shown, part["threshold"], part["species"],
+                                                       failed)):
         if not np.isfinite(y):
             continue
         right = x > 0.8 * x_max
-        ax.annotate(f"≥{thr:g}: {int(species)} sp.", (x, y), textcoords="offset points",
-                    xytext=(-5 if right else 5, (8 if n % 2 == 0 else -14) - 10 * series),
-                    ha="right" if right else "left", fontsize=ps.FONT_SIZE - 2, color=colour)
+        text = f"≥{thr:g}: {int(species)} sp." + (f", {bad} failed" if bad > 0 else "")
+        dy = 8 + 10 * n if on_edge[n] else (8 if n % 2 == 0 else -14) - 10 * series
+        label = ax.annotate(text, (x, y), textcoords="offset points", xytext=(-5 if right else 5, dy),
+                            ha="right" if right else "left", fontsize=ps.FONT_SIZE - 2, color=colour)
+        label.set_in_layout(False)  # labels sit inside the panel; the layout must not shrink for them
 
 
 def plot_cuts(source, total_reactions: int | None = None):
@@ -335,21 +342,31 @@ def plot_cuts(source, total_reactions: int | None = None):
     for ax, (key, text, units) in zip(axes, have):
         values = frame[f"{key}_max"].to_numpy(float)
         positive = values[np.isfinite(values) & (values > 0)]
-        floor = positive.min() / 10 if positive.size else 1e-12
+        tol = frame.attrs["tolerances"].get(key, np.nan)
+        # a log axis has no 0: exact zeros go on the bottom edge with an open marker of their own
+        lowest = [*positive, *([tol] if np.isfinite(tol) and tol > 0 else [])]
+        floor = min(lowest) / 30 if lowest else 1e-12
+        top = max([floor * 1e3, *positive, *([tol] if np.isfinite(tol) else [])]) * 3
         for k, criterion in enumerate(criteria):
             part = frame[frame["criterion"] == criterion].sort_values("reactions")
             v = part[f"{key}_max"].to_numpy(float)
-            shown = np.where(np.isfinite(v), np.maximum(v, floor), np.nan)  # an exact 0 sits on the floor
+            x = part["reactions"].to_numpy(float)
             colour = ps.LINE_SERIES[k % len(ps.LINE_SERIES)]
-            ax.plot(part["reactions"], shown, marker=markers[k % len(markers)], ms=6, lw=1.2,
-                    color=colour, ls=ps.LINESTYLES[k % len(ps.LINESTYLES)], label=f"criterion {criterion}")
+            marker = markers[k % len(markers)]
+            above = np.isfinite(v) & (v > 0)
+            zero = np.isfinite(v) & (v == 0)
+            ax.plot(x[above], v[above], marker=marker, ms=6, lw=1.2, color=colour,
+                    ls=ps.LINESTYLES[k % len(ps.LINESTYLES)], label=f"criterion {criterion}")
+            if zero.any():  # (an empty unclipped line would stretch the layout to the figure's corner)
+                ax.plot(x[zero], np.full(zero.sum(), floor), marker=marker, ms=7, ls="none", mfc="white",
+                        mec=colour, mew=1.5, clip_on=False, zorder=5)
             if ax is axes[0] and len(part) <= 10:
-                _label_cuts(ax, part, shown, colour, k)
-        tol = frame.attrs["tolerances"].get(key, np.nan)
+                _label_cuts(ax, part, np.where(zero, floor, np.where(above, v, np.nan)), colour, k, zero)
+        ax.set_ylim(floor, top)
         if np.isfinite(tol) and tol > 0:
             ax.axhline(tol, color="0.3", lw=1.0, ls=":")
             ax.text(0.01, tol, " tolerance", transform=ax.get_yaxis_transform(), va="bottom", fontsize=ps.FONT_SIZE - 2,
-                    color="0.3")
+                    color="0.3", clip_on=True).set_in_layout(False)
         if total_reactions:
             ax.axvline(total_reactions, color="0.6", lw=0.8)
         ax.set_yscale("log")
@@ -357,10 +374,11 @@ def plot_cuts(source, total_reactions: int | None = None):
         ax.set_xlabel(ps.axis_label("reactions kept", "1"))
         ax.set_ylabel(ps.axis_label(f"largest {text}", units))
         ax.grid(True, color="0.9", lw=0.6)
-    fig.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncols=len(criteria), frameon=False,
-               fontsize=ps.FONT_SIZE - 1)
-    note = ("largest over the validated cases; labels: threshold and species kept; an error of exactly 0 is "
-            "drawn at the bottom of the axis")
+    handles, texts = axes[0].get_legend_handles_labels()
+    handles.append(Line2D([], [], marker="o", ms=7, ls="none", mfc="white", mec="0.3", mew=1.5))
+    texts.append("error exactly 0 (on the bottom edge)")
+    fig.legend(handles, texts, loc="outside lower center", ncols=len(texts), frameon=False, fontsize=ps.FONT_SIZE - 1)
+    note = "largest error over the validated cases; labels: threshold, species kept, failed cases"
     if total_reactions:
         note += f"; grey line: full mechanism, {total_reactions} reactions"
     fig.suptitle(note, fontsize=ps.FONT_SIZE - 1)
