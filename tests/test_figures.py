@@ -420,3 +420,24 @@ def test_overlap_check_sees_an_overlap():
     ax.text(0.52, 0.5, "second label")
     with pytest.raises(AssertionError, match="overlapping labels"):
         assert_no_overlap(fig, "made up")
+
+
+def test_cuts_chart_shows_exact_zeros_on_the_edge_not_as_values():
+    import pandas as pd
+
+    table = pd.DataFrame({"criterion": ["local"] * 3, "threshold": [0.0, 0.01, 0.1], "reactions": [29, 20, 9],
+                          "species": [10, 9, 7], "failed_cases": [0, 0, 2],
+                          "ignition_delay_error_max": [0.0, 0.03, 0.4],
+                          "equilibrium_temperature_error_max": [0.0, 0.0, 1.5],
+                          "entropy_produced_error_max": [0.0, 1e-4, 0.02]})
+    fig = grid_figures.plot_cuts(table, 29)
+    for ax in fig.axes:
+        bottom = ax.get_ylim()[0]
+        open_markers = [line for line in ax.get_lines() if line.get_markerfacecolor() == "white"]
+        assert open_markers and all(np.allclose(line.get_ydata(), bottom) for line in open_markers)
+        points = [line for line in ax.get_lines() if line.get_marker() not in ("None", "", None)]
+        filled = [y for line in points if line.get_markerfacecolor() != "white" for y in line.get_ydata()]
+        assert all(y > bottom for y in filled)  # real errors stay above the edge
+    labels = [t.get_text() for t in fig.axes[0].texts]
+    assert "≥0.1: 7 sp., 2 failed" in labels
+    assert_no_overlap(fig, "cuts")
