@@ -1,12 +1,14 @@
 """Per-case figures, drawn from one case file (``results/cases/<case_id>.nc``).
 
     entropy_production  sigma_j over log time, the top reactions stacked and the rest grouped,
-                        above the share of each in the total
+                        above the share of each in the total; beside it, where the entropy is
+                        made, drawn so that areas are entropy
     affinity_rate       |q_j| against |x_j| on log axes for the top reactions, with the exact
                         mass-action relation q = r+ (1 - exp(-x)) and the linear (Onsager) line
-    sea_paths           entropy (the reactor's potential) and temperature against time, observed
-                        and for each steepest-entropy-ascent (SEA) path
-    alignment           cos theta between the observed rates and steepest ascent, per metric
+    sea_paths           entropy (the reactor's potential) and temperature against the time since
+                        progress lambda_0, observed and for each steepest-entropy-ascent (SEA) path
+    alignment           cos theta between the observed rates and steepest ascent, per metric,
+                        against log time and against progress
 
 The SEA figures need the SEA variables (``alignment(metric, time)``, ``sea_time(metric, progress)``,
 ...); a file without them gets the other figures and a note saying why these were skipped.
