@@ -149,3 +149,21 @@ def test_killed_mid_write_then_resumed_equals_an_uninterrupted_run(reference, tm
     # And a third run has nothing left to do.
     again = _snakemake(folder, "-n")
     assert again.returncode == 0 and "Nothing to be done" in again.stdout + again.stderr
+
+
+def test_a_temporary_left_by_a_dead_writer_is_removed_and_a_live_ones_kept(tmp_path):
+    # What a SIGKILL during a write leaves (the pid in the name is of a process that is gone),
+    # next to the temporary of a writer that is still alive (this test process).
+    from sigmagrid import store
+
+    target = tmp_path / "summary.nc"
+    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
+    stale = tmp_path / f".summary.nc.{dead.stdout.strip()}.abc123.tmp-nc"
+    live = tmp_path / f".summary.nc.{os.getpid()}.def456.tmp-nc"
+    stale.write_bytes(b"CDF\x01 half a file")
+    live.write_bytes(b"CDF\x01 being written")
+    store.write_text_atomic("x", tmp_path / "other.txt")  # another target: leaves both alone
+    assert stale.exists() and live.exists()
+    store.write_atomic(xr.Dataset({"a": ("x", np.arange(3.0))}), target)
+    assert not stale.exists() and live.exists() and xr.open_dataset(target).sizes["x"] == 3
+    count_tried("kill-and-resume: stale temporaries cleaned", 1)

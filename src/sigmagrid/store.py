@@ -118,6 +118,7 @@ def write_atomic(ds: xr.Dataset, path: str | Path, compress: bool = True) -> Pat
         if var.dtype.kind == "f":
             # CF: coordinate variables carry no fill value; data variables mark missing as NaN
             encoding.setdefault(name, {})["_FillValue"] = None if name in ds.dims else np.nan
+    remove_stale_temporaries(path)
     fd, tmp = tempfile.mkstemp(prefix=_temp_prefix(path), suffix=".tmp-nc", dir=path.parent)
     os.close(fd)
     try:
@@ -164,13 +165,19 @@ def _alive(pid: int) -> bool:
 
 
 def write_text_atomic(text: str, path: str | Path) -> Path:
+    """Write text under a temporary name in the same folder, then rename (see :func:`write_atomic`)."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
+    remove_stale_temporaries(path)
     fd, tmp = tempfile.mkstemp(prefix=_temp_prefix(path), suffix=".tmp", dir=path.parent)
-    with os.fdopen(fd, "w") as handle:
-        handle.write(text)
-    os.chmod(tmp, 0o644)
-    os.replace(tmp, path)
+    try:
+        with os.fdopen(fd, "w") as handle:
+            handle.write(text)
+        os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
     return path
 
 
