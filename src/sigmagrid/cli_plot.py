@@ -36,6 +36,20 @@ def cmd_plot(args) -> int:
     return 0
 
 
+def cmd_plot_cases(args) -> int:
+    """Per-case figures of several case files, each into ROOT/<case_id>: one interpreter start for
+    a batch (the workflow's way; drawing one case takes a few seconds, starting Python one more)."""
+    from . import figures
+
+    if args.top < 1:
+        raise InputError("--top", f"must be at least 1, got {args.top}")
+    root = _out_folder(Path(args.root))
+    opened = [figures.open_case_file(f) for f in args.files]  # refuse bad files before any output
+    for path, ds in zip(args.files, opened):
+        figures.plot_case(path, root / ds.attrs["case_id"], top=args.top, log=_say)
+    return 0
+
+
 def cmd_plot_grid(args) -> int:
     from . import grid_figures
 
@@ -51,6 +65,12 @@ def add_commands(sub) -> None:
     p.add_argument("--out", default=None, help="folder for the figures (default: figures/<case_id>)")
     p.add_argument("--top", type=int, default=6, help="how many reactions to show by name (default 6)")
     p.set_defaults(func=cmd_plot)
+
+    p = sub.add_parser("plot-cases", help="per-case figures of several case files, into ROOT/<case_id>/")
+    p.add_argument("files", nargs="+", help="case files, results/cases/<case_id>.nc")
+    p.add_argument("--root", required=True, help="folder holding one folder of figures per case")
+    p.add_argument("--top", type=int, default=6, help="how many reactions to show by name (default 6)")
+    p.set_defaults(func=cmd_plot_cases)
 
     p = sub.add_parser("plot-grid", help="figures over the whole grid from summary.nc (PNG and SVG)")
     p.add_argument("summary", help="results/summary.nc")

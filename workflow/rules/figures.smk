@@ -19,27 +19,37 @@ _REDUCTION = f"{RESULTS}/reduction.nc" if "RANK_TARGETS" in globals() else None
 report: "../report/workflow.rst"
 
 
-rule case_figures:
-    input:
-        f"{RESULTS}/cases/{{case_id}}.nc",
-    output:
-        report(
-            directory(f"{RESULTS}/figures/cases/{{case_id}}"),
-            patterns=["{figure}.png"],
-            caption="../report/case_figures.rst",
-            category="Per-case figures",
-            subcategory=lambda w: CASE_LABEL[w.case_id],
-            labels=lambda w: {"case": CASE_LABEL[w.case_id], "figure": w.figure},
-        ),
-    wildcard_constraints:
-        case_id="[0-9a-f]{16}",
-    params:
-        top=CONFIG["figures"]["top_reactions"],
-        caution=CAUTION,
-    log:
-        f"{RESULTS}/logs/figures_{{case_id}}.log",
-    shell:
-        "{SIGMAGRID} plot {input} --out {output} --top {params.top} > {log} 2>&1"
+# Per-case figures in a few jobs (about 4 per core): drawing a case takes seconds, starting the
+# interpreter for it would take as long again.
+_FIGURE_JOBS = max(1, min(len(FIGURE_CASES), 8))
+_FIGURE_BATCHES = [FIGURE_CASES[i::_FIGURE_JOBS] for i in range(_FIGURE_JOBS)]
+
+for _index, _cases in enumerate(_FIGURE_BATCHES):
+
+    rule:
+        name:
+            f"case_figures_{_index:03d}"
+        input:
+            [f"{RESULTS}/cases/{c.case_id}.nc" for c in _cases],
+        output:
+            [
+                report(
+                    directory(f"{RESULTS}/figures/cases/{c.case_id}"),
+                    patterns=["{figure}.png"],
+                    caption="../report/case_figures.rst",
+                    category="Per-case figures",
+                    subcategory=c.label,
+                    labels=lambda w, label=c.label: {"case": label, "figure": w.figure},
+                )
+                for c in _cases
+            ],
+        params:
+            top=CONFIG["figures"]["top_reactions"],
+            caution=CAUTION,
+        log:
+            f"{RESULTS}/logs/figures_cases_{_index:03d}.log",
+        shell:
+            "{SIGMAGRID} plot-cases {input} --root {RESULTS}/figures/cases --top {params.top} > {log} 2>&1"
 
 
 rule grid_figures:
