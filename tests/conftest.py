@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from sigmagrid import config as config_mod, grid as grid_mod, mechanism, reactors, runner, store
+from sigmagrid import config as config_mod, grid as grid_mod, mechanism, runner, store
 
 REPO = Path(__file__).resolve().parents[1]
 AIR = "O2:1, N2:3.76"
@@ -53,13 +53,32 @@ def case_files(tmp_path_factory):
     return {c.label: store.open_case(f) for c, f in zip(grid.cases, files)}
 
 
+def copy_workflow(folder: Path, config: dict | None = None) -> Path:
+    """A copy of the workflow (Snakefile, workflow/, config/, profiles) in ``folder``; ``config``
+    replaces the default config."""
+    import yaml
+
+    for name in ("Snakefile", "workflow", "config", "profiles"):
+        src = REPO / name
+        if src.is_dir():
+            shutil.copytree(src, folder / name, symlinks=True)
+        else:
+            shutil.copy(src, folder / name)
+    if config is not None:
+        (folder / "config" / "config.yaml").write_text(yaml.safe_dump(config))
+    return folder
+
+
+def snakemake(workdir: Path, *args: str) -> subprocess.CompletedProcess:
+    """Snakemake on 2 cores in ``workdir``, as a user runs it."""
+    return subprocess.run([sys.executable, "-m", "snakemake", "--cores", "2", *args], cwd=workdir,
+                          capture_output=True, text=True, timeout=900)
+
+
 @pytest.fixture()
 def workdir(tmp_path):
     """A copy of the workflow (Snakefile, workflow/, config/) in a fresh folder."""
-    for name in ("Snakefile", "workflow", "config", "profiles"):
-        src = REPO / name
-        (shutil.copytree if src.is_dir() else shutil.copy)(src, tmp_path / name)
-    return tmp_path
+    return copy_workflow(tmp_path)
 
 
 # How many configs, mechanisms and conditions the reliability tests tried: CI prints the counts.

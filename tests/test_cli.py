@@ -1,8 +1,5 @@
 """The command line: one case, show, listing, and bad input that never leaves a file or a traceback."""
 
-from pathlib import Path
-
-import numpy as np
 import pytest
 import xarray as xr
 

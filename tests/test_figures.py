@@ -9,8 +9,6 @@ from __future__ import annotations
 import itertools
 import json
 import re
-import subprocess
-import sys
 
 import numpy as np
 import pytest
@@ -18,7 +16,7 @@ import xarray as xr
 import yaml
 from PIL import Image
 
-from conftest import REPO, run_cli
+from conftest import copy_workflow, run_cli, snakemake
 from sigmagrid import config as config_mod, figures, grid as grid_mod, grid_figures, plotstyle, store
 from sigmagrid.errors import InputError
 from sigmagrid.safety import CAUTION
@@ -53,21 +51,10 @@ def assert_image(path, size):
     assert inked > 0.01, f"{path.name} has almost no ink ({inked:.2%} dark pixels)"
 
 
-def snakemake(workdir, *args):
-    return subprocess.run([sys.executable, "-m", "snakemake", "--cores", "2", *args], cwd=workdir,
-                          capture_output=True, text=True, timeout=900)
-
-
 @pytest.fixture(scope="module")
 def flow(tmp_path_factory):
     """The workflow run on the tiny grid, then ``--report``."""
-    import shutil
-
-    workdir = tmp_path_factory.mktemp("figflow")
-    for name in ("Snakefile", "workflow", "config"):
-        src = REPO / name
-        (shutil.copytree if src.is_dir() else shutil.copy)(src, workdir / name)
-    (workdir / "config" / "config.yaml").write_text(yaml.safe_dump(TINY))
+    workdir = copy_workflow(tmp_path_factory.mktemp("figflow"), TINY)
     done = snakemake(workdir)
     assert done.returncode == 0, done.stderr[-3000:]
     report = snakemake(workdir, "--report", "results/report.html")

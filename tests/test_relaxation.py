@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 import yaml
 
-from sigmagrid import mechanism, reactors, runner, grid as grid_mod, store
+from sigmagrid import mechanism, reactors
 
 HELD = {"isolated": "UV", "constant-pressure": "HP", "isothermal": "TP"}
 

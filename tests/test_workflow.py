@@ -1,15 +1,13 @@
 """End to end: the Snakemake workflow on a tiny grid, the summary, and the CF checks of a case file."""
 
 import json
-import subprocess
-import sys
 
 import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-import yaml
 
+from conftest import copy_workflow, snakemake
 from sigmagrid import config as config_mod, grid as grid_mod
 
 TINY = {
@@ -24,21 +22,9 @@ TINY = {
 }
 
 
-def snakemake(workdir, *args):
-    return subprocess.run([sys.executable, "-m", "snakemake", "--cores", "2", *args], cwd=workdir,
-                          capture_output=True, text=True, timeout=900)
-
-
 @pytest.fixture(scope="module")
 def finished(tmp_path_factory):
-    from conftest import REPO
-    import shutil
-
-    workdir = tmp_path_factory.mktemp("flow")
-    for name in ("Snakefile", "workflow", "config"):
-        src = REPO / name
-        (shutil.copytree if src.is_dir() else shutil.copy)(src, workdir / name)
-    (workdir / "config" / "config.yaml").write_text(yaml.safe_dump(TINY))
+    workdir = copy_workflow(tmp_path_factory.mktemp("flow"), TINY)
     done = snakemake(workdir)
     assert done.returncode == 0, done.stderr[-3000:]
     return workdir

@@ -9,9 +9,7 @@ involved (the Agg renderer writes the files).
 
 from __future__ import annotations
 
-import os
 import re
-import tempfile
 from pathlib import Path
 
 import matplotlib
@@ -21,6 +19,8 @@ matplotlib.use("Agg")  # before anything imports pyplot: no display on batch nod
 import numpy as np  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter  # noqa: E402
+
+from . import store  # noqa: E402
 
 #: Okabe-Ito, without black (kept for the observed path) and in an order where neighbours contrast.
 OKABE_ITO = {
@@ -111,13 +111,6 @@ def save(fig: Figure, path: str | Path, title: str = "", description: str = "") 
         metadata = {"Title": title, "Description": description, "Date": None}
     else:
         raise ValueError(f"unsupported figure format '{fmt}'")
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=f".tmp-{fmt}", dir=path.parent)
-    os.close(fd)
-    try:
+    with store.atomic_path(path, f".tmp-{fmt}") as tmp:
         fig.savefig(tmp, format=fmt, dpi=DPI, metadata=metadata)
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
     return path

@@ -449,28 +449,16 @@ def write_yaml_atomic(solution: ct.Solution, path: str | Path, description: str,
     its content hash, and with it the ids of its validation cases, survive a rewrite (reruns
     resume from the case files already computed).
     """
-    import os
-    import tempfile
-
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
     solution.update_user_header({"description": description})
     solution.TPX = 300.0, ct.one_atm, {solution.species_names[0]: 1.0}
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=".yaml", dir=path.parent)
-    os.close(fd)
-    try:
+    with store.atomic_path(path, ".tmp-yaml") as tmp:
         try:
-            solution.write_yaml(tmp, units=units) if units else solution.write_yaml(tmp)
+            solution.write_yaml(str(tmp), units=units) if units else solution.write_yaml(str(tmp))
         except ct.CanteraError:  # a unit system the writer does not take: its own default
-            solution.write_yaml(tmp)
-
-        text = Path(tmp).read_text()
-        Path(tmp).write_text("".join(ln for ln in text.splitlines(keepends=True) if not ln.startswith("date:")))
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+            solution.write_yaml(str(tmp))
+        text = tmp.read_text()
+        tmp.write_text("".join(ln for ln in text.splitlines(keepends=True) if not ln.startswith("date:")))
     return path
 
 

@@ -262,7 +262,7 @@ def relax(
     tracker = SignTracker(info)
 
     path = _PathRecorder(gas, reactor_type, mass, tracker)
-    times, potentials = path.times, path.potentials
+    potentials = path.potentials
     record = path.record
 
     def result(status: str, reason: str, equilibrium) -> Relaxation:

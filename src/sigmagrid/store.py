@@ -7,6 +7,7 @@ how the cases were scheduled.
 
 from __future__ import annotations
 
+import contextlib
 import glob
 import os
 import tempfile
@@ -17,7 +18,6 @@ import pandas as pd
 import xarray as xr
 
 from . import missing
-from .units import UNITS
 
 CONVENTIONS = "CF-1.10"
 
@@ -118,17 +118,30 @@ def write_atomic(ds: xr.Dataset, path: str | Path, compress: bool = True) -> Pat
         if var.dtype.kind == "f":
             # CF: coordinate variables carry no fill value; data variables mark missing as NaN
             encoding.setdefault(name, {})["_FillValue"] = None if name in ds.dims else np.nan
+    with atomic_path(path, ".tmp-nc") as tmp:
+        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
+    return path
+
+
+@contextlib.contextmanager
+def atomic_path(path: str | Path, suffix: str = ".tmp"):
+    """Yield a temporary path in ``path``'s folder; on success it becomes ``path`` (rename).
+
+    Readable by the team (mkstemp makes files private). On any error, or a kill, the final name
+    is never half-written: the temporary is removed, or left for :func:`remove_stale_temporaries`.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
     remove_stale_temporaries(path)
-    fd, tmp = tempfile.mkstemp(prefix=_temp_prefix(path), suffix=".tmp-nc", dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=_temp_prefix(path), suffix=suffix, dir=path.parent)
     os.close(fd)
     try:
-        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
-        os.chmod(tmp, 0o644)  # mkstemp makes it private; results are for the team
+        yield Path(tmp)
+        os.chmod(tmp, 0o644)
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
-    return path
 
 
 def _temp_prefix(path: Path) -> str:
@@ -165,20 +178,9 @@ def _alive(pid: int) -> bool:
 
 
 def write_text_atomic(text: str, path: str | Path) -> Path:
-    """Write text under a temporary name in the same folder, then rename (see :func:`write_atomic`)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    remove_stale_temporaries(path)
-    fd, tmp = tempfile.mkstemp(prefix=_temp_prefix(path), suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w") as handle:
-            handle.write(text)
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return path
+    with atomic_path(path) as tmp:
+        tmp.write_text(text)
+    return Path(path)
 
 
 #: Case-file attributes repeated in every row of cases.csv, so the table alone says how it was made.

@@ -10,16 +10,3 @@ GAS_CONSTANT = 8.314462618
 #: kmol -> mol
 PER_KMOL = 1.0e-3  # J/kmol -> J/mol
 KMOL = 1.0e3  # kmol/(m3 s) -> mol/(m3 s)
-
-#: UDUNITS spellings of the units used in the files and tables.
-UNITS = {
-    "time": "s",
-    "temperature": "K",
-    "pressure": "Pa",
-    "volume": "m3",
-    "entropy": "J K-1",
-    "affinity": "J mol-1",
-    "rate": "mol m-3 s-1",
-    "entropy_production": "W m-3 K-1",
-    "dimensionless": "1",
-}

@@ -94,7 +94,7 @@ def _compare(gas, info, rel, sample_index, settings):
                           f"largest progress {np.nanmax(lam) if np.isfinite(lam).any() else float('nan'):.3g}; "
                           f"relaxation {rel.status}{': ' + rel.reason if rel.reason else ''})")
 
-    nr, ns = gas.n_reactions, gas.n_species
+    ns = gas.n_species
     mw = gas.molecular_weights * PER_KMOL  # kg/mol
     grid = progress_grid(settings.n_progress, settings.start_progress, settings.end_progress)
     nu = gas.product_stoich_coeffs - gas.reactant_stoich_coeffs
