@@ -77,14 +77,7 @@ class Skipped(Exception):
 
 def open_case_file(path: str | Path) -> xr.Dataset:
     """Open a case file for plotting, or raise InputError naming the file if it is not one."""
-    path = Path(path)
-    if not path.is_file():
-        raise InputError("FILE", f"'{path}' does not exist")
-    try:
-        with xr.open_dataset(path) as opened:
-            ds = opened.load()
-    except Exception as err:  # noqa: BLE001 - any reader error means "not a netCDF file we can read"
-        raise InputError("FILE", f"'{path}' is not a readable netCDF file ({type(err).__name__})") from None
+    ds = store.open_input(path, "FILE")
     needed = ("entropy_production", "entropy_production_total", "entropy_produced", "net_rate", "forward_rate",
               "reverse_rate", "affinity", "temperature", "potential")
     if "case_id" not in ds.attrs or any(v not in ds for v in needed):

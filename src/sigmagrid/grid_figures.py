@@ -25,7 +25,7 @@ from matplotlib.colors import LogNorm, Normalize
 from matplotlib.lines import Line2D
 from matplotlib.ticker import MaxNLocator
 
-from . import plotstyle as ps
+from . import plotstyle as ps, store
 from .errors import InputError
 from .figures import Skipped
 
@@ -60,13 +60,7 @@ def map_size(n_rows: int, n_cols: int) -> tuple[int, int]:
 def open_summary(path: str | Path) -> xr.Dataset:
     """Open summary.nc, or raise InputError if it is not a grid summary."""
     path = Path(path)
-    if not path.is_file():
-        raise InputError("SUMMARY", f"'{path}' does not exist")
-    try:
-        with xr.open_dataset(path) as opened:
-            ds = opened.load()
-    except Exception as err:  # noqa: BLE001
-        raise InputError("SUMMARY", f"'{path}' is not a readable netCDF file ({type(err).__name__})") from None
+    ds = store.open_input(path, "SUMMARY")
     if "case" not in ds.dims or "entropy_produced" not in ds or "reactor" not in ds.coords:
         raise InputError("SUMMARY", f"'{path}' is not a sigmagrid grid summary (no case dimension with "
                          "entropy_produced); a single case file is plotted with 'sigmagrid plot'")

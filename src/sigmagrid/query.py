@@ -35,14 +35,9 @@ MATCH_RTOL = 1e-9
 
 def open_dataset(path: str | Path, what: str = "file") -> xr.Dataset:
     """Open a summary, progress or ranking file fully into memory; a missing file is an InputError."""
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(what, f"'{path}' does not exist (run the grid first: snakemake --cores 2)")
-    try:
-        with xr.open_dataset(path) as ds:
-            return ds.load()
-    except Exception as err:  # noqa: BLE001 - unreadable input, said in one line
-        raise InputError(what, f"'{path}' is not a readable netCDF file: {err}") from None
+    from . import store
+
+    return store.open_input(path, what, " (run the grid first: snakemake --cores 2)")
 
 
 def selectable(ds: xr.Dataset, dim: str = "case") -> list[str]:

@@ -191,6 +191,21 @@ CASE_COORDS = ("case_id", "label", "reactor", "composition_name", "equivalence_r
                "initial_temperature", "initial_pressure", "status")
 
 
+def open_input(path: str | Path, field: str, missing_hint: str = "") -> xr.Dataset:
+    """Open a netCDF file a user named, fully into memory; a missing or unreadable file is an
+    InputError naming ``field``, not a traceback."""
+    from .errors import InputError
+
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(field, f"'{path}' does not exist{missing_hint}")
+    try:
+        with xr.open_dataset(path) as opened:
+            return opened.load()
+    except Exception as err:  # noqa: BLE001 - any reader error means "not a netCDF file we can read"
+        raise InputError(field, f"'{path}' is not a readable netCDF file ({type(err).__name__})") from None
+
+
 def open_case(path: str | Path) -> xr.Dataset:
     """Open a case file fully into memory (the file is closed afterwards)."""
     with xr.open_dataset(path) as ds:
