@@ -115,53 +115,34 @@ class SignAudit:
 
 
 class SignTracker:
-    """Accumulates the per-step minima needed for :class:`SignAudit` along a full path."""
+    """Accumulates, block of steps by block, the minima needed for :class:`SignAudit`."""
 
     def __init__(self, info: MechanismInfo):
         self.info = info
-        groups = info.duplicate_group
-        self.group_ids, self.group_index = np.unique(groups, return_inverse=True)
-        member_count = np.bincount(self.group_index)
-        self.in_group = member_count[self.group_index] > 1
+        _, group_index = np.unique(info.duplicate_group, return_inverse=True)
+        member_count = np.bincount(group_index)
+        self.in_group = member_count[group_index] > 1
         self.singles = info.reversible & ~self.in_group
-        self.group_reversible = np.bincount(self.group_index, weights=(~info.reversible).astype(float)) == 0
-        self.multi = member_count > 1
+        reversible_group = np.bincount(group_index, weights=(~info.reversible).astype(float)) == 0
+        checked = np.flatnonzero((member_count > 1) & reversible_group)
+        # sigma @ groups sums each reversible duplicate group: the physical reaction is what must
+        # obey de Donder's inequality, not its members
+        self.groups = (group_index[:, None] == checked[None, :]).astype(float) if checked.size else None
         self.min_single = 0.0
         self.min_group = 0.0
         self.peak_total = 0.0
         self.member_min = np.zeros(info.reversible.size)
 
-    def update(self, sigma_j: np.ndarray) -> None:
-        total = float(sigma_j.sum())
-        if total > self.peak_total:
-            self.peak_total = total
-        if self.singles.any():
-            self.min_single = min(self.min_single, float(sigma_j[self.singles].min()))
-        if self.multi.any():
-            group_sigma = np.bincount(self.group_index, weights=sigma_j)
-            mask = self.multi & self.group_reversible
-            if mask.any():
-                self.min_group = min(self.min_group, float(group_sigma[mask].min()))
-            np.minimum(self.member_min, sigma_j, out=self.member_min)
-
-    def update_many(self, sigma: np.ndarray) -> None:
-        """Same as :meth:`update` for a block of steps, sigma of shape (n_steps, n_reactions)."""
+    def update(self, sigma: np.ndarray) -> None:
+        """Take in sigma_j (W m-3 K-1) of a block of steps, shape (n_steps, n_reactions)."""
         if sigma.size == 0:
             return
         self.peak_total = max(self.peak_total, float(sigma.sum(axis=1).max()))
         if self.singles.any():
             self.min_single = min(self.min_single, float(sigma[:, self.singles].min()))
-        if self.multi.any():
-            if not hasattr(self, "_groups_matrix"):
-                mask = self.multi & self.group_reversible
-                members = np.flatnonzero(mask[self.group_index])
-                cols = {g: i for i, g in enumerate(np.flatnonzero(mask))}
-                matrix = np.zeros((sigma.shape[1], max(len(cols), 1)))
-                for j in members:
-                    matrix[j, cols[self.group_index[j]]] = 1.0
-                self._groups_matrix = matrix if cols else None
-            if self._groups_matrix is not None:
-                self.min_group = min(self.min_group, float((sigma @ self._groups_matrix).min()))
+        if self.groups is not None:
+            self.min_group = min(self.min_group, float((sigma @ self.groups).min()))
+        if self.in_group.any():
             np.minimum(self.member_min, sigma.min(axis=0), out=self.member_min)
 
     def audit(self, produced: np.ndarray) -> SignAudit:

@@ -116,9 +116,8 @@ class Relaxation:
         return self.equilibrium is not None and self._negligible(self.driving_potential)
 
     def _negligible(self, value: float) -> bool:
-        # 1e-10 R per mole of mixture: far below any chemistry, far above round-off
         kmol = self.mass * np.sum(self.mass_fractions[0] / self.molecular_weights)
-        return abs(value) <= 1e-10 * kmol * 1e3 * GAS_CONSTANT
+        return negligible_potential(value, kmol)
 
     @property
     def progress(self) -> np.ndarray:
@@ -156,6 +155,12 @@ class Relaxation:
         l0, l1 = lam[i - 1], lam[i]
         t0, t1 = self.time[i - 1], self.time[i]
         return float(t0 + (level - l0) * (t1 - t0) / (l1 - l0)) if l1 != l0 else float(t1)
+
+
+def negligible_potential(value: float, kmol: float) -> bool:
+    """Is a change of Phi (J/K) negligible for ``kmol`` of mixture? Below 1e-10 R per mole: far
+    below any chemistry, far above round-off."""
+    return abs(value) <= 1e-10 * kmol * 1e3 * GAS_CONSTANT
 
 
 def _ignition_delay(t: np.ndarray, temperature: np.ndarray, rise: float) -> float:
@@ -285,8 +290,7 @@ def relax(
     record(0.0, settings.volume)
     phi0 = potentials[0]
     drive = equilibrium.potential - phi0
-    probe = result("relaxed", "", equilibrium)
-    if probe.at_equilibrium_start:
+    if negligible_potential(drive, mass / gas.mean_molecular_weight):
         return result("relaxed", "initial state is already at equilibrium: no entropy to produce, "
                       "progress undefined", equilibrium)
     if drive < 0:
@@ -375,7 +379,7 @@ class _PathRecorder:
         sigma = -np.asarray(self._A) * np.asarray(self._q) / T[:, None]
         self._A.clear()
         self._q.clear()
-        self.tracker.update_many(sigma)
+        self.tracker.update(sigma)
         self._sigma_total.append(sigma.sum(axis=1))
         vs = sigma * V[:, None]
         if self._last is not None:

@@ -215,16 +215,15 @@ def open_case(path: str | Path) -> xr.Dataset:
 #: Per-case figures of the SEA comparison carried into the summary (dims after ``case``).
 SEA_FIGURES = ("largest_path_angle", "time_ratio", "slow_mode_difference", "fit_quality",
                "entropy_production_ratio", "sea_status")
-SEA_METRICS_SEEN: list = []
 
 
-def _sea_summary(parts: list[dict], case_ids: list[str]) -> tuple[dict, dict]:
-    """(summary variables, cases.csv columns) of the SEA figures; empty when no case has them."""
+def _sea_summary(parts: list[dict]) -> tuple[dict, dict, list[str]]:
+    """(summary variables, cases.csv columns, metric names) of the SEA figures; empty when no
+    case has them."""
     present = [p for p in parts if p]
     if not present:
-        return {}, {}
+        return {}, {}, []
     metrics = list(present[0]["largest_path_angle"]["metric"].values) if "largest_path_angle" in present[0] else []
-    SEA_METRICS_SEEN[:] = [metrics]
     data, columns = {}, {}
     for name in SEA_FIGURES:
         template = next((p[name] for p in present if name in p), None)
@@ -246,7 +245,7 @@ def _sea_summary(parts: list[dict], case_ids: list[str]) -> tuple[dict, dict]:
             unit = attrs.get("units", "")
             for i, metric in enumerate(metrics):
                 columns[f"{name}_{metric}" + (f" [{unit}]" if unit and not is_text else "")] = array[:, i]
-    return data, columns
+    return data, columns, metrics
 
 
 def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
@@ -285,7 +284,7 @@ def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
         rows.append(row)
         produced.append(ds["entropy_produced"].values if "entropy_produced" in ds else None)
         sea_parts.append({name: ds[name] for name in SEA_FIGURES if name in ds})
-    sea_data, sea_columns = _sea_summary(sea_parts, [r["case_id"] for r in rows])
+    sea_data, sea_columns, sea_metrics = _sea_summary(sea_parts)
     table = pd.DataFrame(rows)
     for column, values in sea_columns.items():
         table[column] = values
@@ -330,7 +329,7 @@ def summarize(paths: list[str | Path]) -> tuple[xr.Dataset, pd.DataFrame]:
                                        _attrs("s", f"time to reach {level} % progress"))
     data.update(sea_data)
     if sea_data:
-        coords["metric"] = ("metric", np.array(SEA_METRICS_SEEN[0], dtype=str), {"long_name": "SEA metric"})
+        coords["metric"] = ("metric", np.array(sea_metrics, dtype=str), {"long_name": "SEA metric"})
         coords["progress_level"] = ("progress_level", np.array([0.5, 0.9, 0.99]), _attrs("1", "progress level"))
     summary = xr.Dataset(data, coords=coords, attrs={
         "Conventions": CONVENTIONS, "title": f"sigmagrid grid summary {attrs.get('study', '')}".strip(),
