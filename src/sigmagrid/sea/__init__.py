@@ -36,7 +36,12 @@ Choices that shape the numbers (all stored with the result):
   "reversible"``) or are left out (``"omit"``); they never enter the alignment, and their share of
   the entropy production is stored as ``irreversible_entropy_share``.
 - A constant mobility relaxes a species of amount N at a rate ~ m/N; below ``trace_level`` times
-  the total amount the mobility of its reactions is scaled like mass action, N/(N + eps).
+  the total amount the mobility of its reactions is scaled like mass action's one-way rates, by
+  factors N/(N + eps) of both sides near partial equilibrium and of the consumed side when driven
+  hard (``_System._trace``).
+- The clock: a metric's time scale can be ages longer than the kinetics'; when the needed step
+  falls below the resolution of the solver's clock the integration restarts from the last state
+  with its clock at zero.
 - Only ideal-gas phases are compared (chemical potentials, energies and Hessian assume one).
 
 References

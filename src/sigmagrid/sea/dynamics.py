@@ -12,6 +12,7 @@ from __future__ import annotations
 import time as _time
 from dataclasses import dataclass
 
+import cantera as ct
 import numpy as np
 from scipy import sparse
 from scipy.integrate import BDF
@@ -19,6 +20,26 @@ from scipy.integrate import BDF
 from ..units import GAS_CONSTANT, KMOL, PER_KMOL
 
 _R = GAS_CONSTANT  # J/(mol K)
+
+
+#: restarts of one SEA path's integration when its clock runs out of resolution (see ``_sea_path``)
+_RESTARTS = 50
+
+
+def _onset(u):
+    """exp(-1/u) for u > 0, 0 otherwise: a switch-on that is smooth (C-infinity) at u = 0."""
+    pos = u > 0
+    return np.where(pos, np.exp(-1.0 / np.where(pos, u, 1.0)), 0.0)
+
+
+def _onset_slope(u, a):
+    """d/du of :func:`_onset`, given its value a."""
+    pos = u > 0
+    return np.where(pos, a / np.where(pos, u, 1.0) ** 2, 0.0)
+
+
+class _OffConstraint(RuntimeError):
+    """No temperature satisfies the energy constraint at a trial state of the solver."""
 
 
 @dataclass
@@ -59,10 +80,10 @@ class _System:
         self.pressure = pressure  # Pa (constant-pressure, isothermal)
         self.temperature = temperature  # K, Newton guess (isothermal: fixed)
         self.mob = mobility
-        part = (gas.product_stoich_coeffs + gas.reactant_stoich_coeffs) > 0
-        self.part_a = part[np.ix_(active, reactions)].astype(float)  # (na, nr_in)
+        # which active species each reaction consumes when it runs forward (reac) or backward (prod)
+        self.reac_a = (gas.reactant_stoich_coeffs[np.ix_(active, reactions)] > 0).astype(float)  # (na, nr_in)
+        self.prod_a = (gas.product_stoich_coeffs[np.ix_(active, reactions)] > 0).astype(float)
         self.eps = trace_level * self.n_ref  # mol
-        self._trace_factor = 1.0
         self._cache = None  # species energies and heat capacities at the last temperature
         self.n_rhs = 0
         self.n_jac = 0
@@ -71,6 +92,8 @@ class _System:
 
     # state --------------------------------------------------------------------------------
     def amounts(self, z: np.ndarray) -> np.ndarray:
+        if not (np.all(np.isfinite(z)) and z.max() < 50.0):  # a trial state of the solver, far off
+            raise _OffConstraint("amounts out of range")
         n = self.n_full.copy()
         n[self.active] = self.n_ref * np.exp(z)
         return n
@@ -114,18 +137,24 @@ class _System:
         self._set_T(T, y, True)
         if newton and self.reactor != "isothermal":
             g = self.gas
+            # to round-off, not to a tolerance: the BDF Newton iteration resolves the amounts to
+            # about 1e-10 and sees the temperature through every rate; a temperature resolved only
+            # to 1e-11 left a noise floor on which that iteration stalled (one more step here is
+            # cheap: the convergence is quadratic)
             for _ in range(50):
                 if self.reactor == "isolated":
                     e_rt, c_r = g.standard_int_energies_RT, g.standard_cp_R - 1.0
                 else:
                     e_rt, c_r = g.standard_enthalpies_RT, g.standard_cp_R
                 dT = -(float(n @ e_rt) * _R * T - self.energy0) / (float(n @ c_r) * _R)
-                if abs(dT) < 1e-11 * T:
+                if abs(dT) < 1e-14 * T:
                     break
                 T = min(max(T + max(min(dT, 0.5 * T), -0.5 * T), 100.0), 2e4)
                 self._set_T(T, y, False)
+                if abs(dT) < 1e-10 * T:  # quadratic convergence: this step took T to round-off
+                    break
             else:
-                raise RuntimeError("temperature Newton iteration did not converge")
+                raise _OffConstraint("temperature Newton iteration did not converge")
             self._cache = (e_rt, c_r)
         self.temperature = T
         return T
@@ -156,23 +185,41 @@ class _System:
             q = np.where(self.reversible_in, self.gas.net_rates_of_progress[self.rx] * KMOL, rf - rr)
             return q, rr, None
         m = mob.m if mob.kind == "constant" else mob.m * np.exp(-mob.b * (1.0 / T - 1.0 / mob.t_ref))
-        return m * self._trace_factor * x, None, m * self._trace_factor
+        if self.eps > 0:
+            gr, gp = self._g_reac, self._g_prod
+            af, ab = _onset(x), _onset(-x)  # 0 at and below x = 0 (with all derivatives), -> 1
+            g = gr * gp + gr * (1.0 - gp) * af + gp * (1.0 - gr) * ab
+            self._switch = af, ab, g
+            return m * g * x, None, m
+        return m * x, None, m
 
     def _trace(self, n):
-        """g_j = prod_k N_k/(N_k + eps) over the active species of reaction j (1), and eps/(N+eps).
+        """Trace factors prod_k N_k/(N_k + eps) (1) of each reaction's reactants and products.
 
-        A constant mobility would relax a species of amount N at a rate ~ m/N, without bound as
-        N -> 0; below the trace level eps the mobility is scaled like mass action instead. It
-        changes nothing where every species of the reaction is well above eps.
+        A constant mobility relaxes a species of amount N at a relative rate ~ m/N, without bound
+        as N -> 0 (collapses of ln N far below the solver's resolution). Below the trace level eps
+        the mobility is scaled like mass action's, by
+        g = g_r g_p + g_r (1 - g_p) a(x) + g_p (1 - g_r) a(-x), a(u) = exp(-1/u) for u > 0, else 0:
+        near its partial equilibrium (x -> 0) a reaction is scaled by both sides, as the one-way
+        rates of mass action are; driven hard (|x| >> 1) only by the side it consumes (reactants
+        running forward), so a species absent at the start is still formed. q = m g x is smooth
+        and monotone in x, x q >= 0, and nothing changes where the species are well above eps.
         """
+        if not self.eps > 0:
+            return
         na = n[self.active]
         ratio = self.eps / na
-        self._trace_factor = np.exp(-(self.part_a.T @ np.log1p(ratio))) if self.eps > 0 else 1.0
-        self._trace_slope = ratio / (1.0 + ratio) if self.eps > 0 else np.zeros(na.size)
+        lr = np.log1p(ratio)
+        self._g_reac = np.exp(-(self.reac_a.T @ lr))
+        self._g_prod = np.exp(-(self.prod_a.T @ lr))
+        self._trace_slope = ratio / (1.0 + ratio)  # d ln g / d z_k of each consumed species
 
     def rhs(self, t, z):
         self.n_rhs += 1
-        n, T, V = self.state(z)
+        try:
+            n, T, V = self.state(z)
+        except (_OffConstraint, ct.CanteraError):
+            return np.full(z.size, np.nan)  # the solver rejects the trial step and tries a shorter one
         x, rf = self._kinetics(T)
         q, _, _ = self._rates(T, x, rf)
         return V * (self.nu_a @ q) / n[self.active]
@@ -207,6 +254,10 @@ class _System:
         Third-body and falloff dependence of the one-way rates on composition is left out of the
         log-mean Jacobian (it only steers Newton's iteration, not the solution).
         """
+        return self._jacobian(z)[0]
+
+    def _jacobian(self, z):
+        """(J, f, x, q, dx, dq, dlnv, n, T, V) of the time dynamics at z."""
         self.n_jac += 1
         n, T, V = self.state(z)
         g = self.gas
@@ -221,15 +272,26 @@ class _System:
             dlnr = self.orders - np.outer(self.order_sum, dlnv) + np.outer(dlnk, dT)
             dq = q[:, None] * dlnr + rr[:, None] * dx
         else:
-            dq = m[:, None] * (dx + x[:, None] * self.part_a.T * self._trace_slope[None, :])
+            if self.eps > 0:
+                af, ab, gmix = self._switch
+                gr, gp = self._g_reac, self._g_prod
+                dg_dx = gr * (1.0 - gp) * _onset_slope(x, af) - gp * (1.0 - gr) * _onset_slope(-x, ab)
+                dg_dlr = gr * (gp + (1.0 - gp) * af - gp * ab)  # d g / d ln g_r
+                dg_dlp = gp * (gr - gr * af + (1.0 - gr) * ab)  # d g / d ln g_p
+                dq = (m * (gmix + x * dg_dx))[:, None] * dx
+                dq += (m * x)[:, None] * (dg_dlr[:, None] * self.reac_a.T
+                                          + dg_dlp[:, None] * self.prod_a.T) * self._trace_slope[None, :]
+            else:
+                gmix = 1.0
+                dq = m[:, None] * dx
             if self.mob.kind == "arrhenius":
-                dq += np.outer(x * m * self.mob.b / T**2, dT)
+                dq += np.outer(x * m * gmix * self.mob.b / T**2, dT)
         na = n[self.active]
         flux = self.nu_a @ q
         f = V * flux / na
         J = (V * (self.nu_sp @ dq) + np.outer(flux, V * dlnv)) / na[:, None]
         J[np.diag_indices_from(J)] -= f
-        return J
+        return J, f, x, q, dx, dq, dlnv, n, T, V
 
     # observables --------------------------------------------------------------------------
     def potential(self):
@@ -302,8 +364,14 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
 
     The SEA progress is lambda_start + (1 - lambda_start)(Phi - Phi_start)/(Phi_eq - Phi_start), with
     Phi_eq the equilibrium of the start state's own energy and elements, so the path ends at 1 even
-    where the observed path's held energy drifted. Stops at ``end_progress``, when stalled, at the
-    time limit, or at the step or wall budget (status and reason say which).
+    where the observed path's held energy drifted. Stops at ``end_progress``, at the time limit,
+    or at the step or wall budget (status and reason say which).
+
+    A metric's own clock can be ages slower than the kinetics' (an onsager path whose fuel
+    reactions have tiny equilibrium rates takes 1e7 times the observed relaxation), with fast
+    events late on. When the step the solver needs falls below the resolution of its clock, the
+    integration is restarted from the last accepted state with its clock at zero (the time then
+    runs on as an offset), at most ``_RESTARTS`` times.
     """
     started = _time.perf_counter()
     ng, ns = grid.size, system.gas.n_species
@@ -337,17 +405,26 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
     system.state(z0)
     u0 = system.held_energy()
     phi_prev = system.potential()
-    ts, lams, dens = [0.0], [lam_of(phi_prev)], []
-    solver = None
+    ts, lams, dens = [0.0], [lam_of(phi_prev)], []  # dens: (clock offset s, dense output)
+    t_end = settings.time_factor * t_scale
+
+    def start(z, offset):
+        return BDF(system.rhs, 0.0, z, t_bound=np.inf, rtol=rtol, atol=atol, jac=system.jac), offset
+
+    solver, offset, restarts = None, 0.0, 0
     try:
-        solver = BDF(system.rhs, 0.0, z0, t_bound=settings.time_factor * t_scale, rtol=rtol, atol=atol,
-                     jac=system.jac)
+        solver, offset = start(z0, 0.0)
         steps = 0
         while True:
             msg = solver.step()
             steps += 1
             if solver.status == "failed":
-                status, reason = "failed", f"BDF at t = {solver.t:.4g} s, progress {lams[-1]:.6g}: {msg}"
+                if restarts < _RESTARTS and "spacing between numbers" in str(msg) and solver.t > 0:
+                    restarts += 1
+                    solver, offset = start(solver.y.copy(), offset + solver.t)
+                    continue
+                status, reason = "failed", (f"BDF at t = {offset + solver.t:.4g} s, progress {lams[-1]:.6g} "
+                                            f"({restarts} restarts): {msg}")
                 break
             # project the accepted step back onto the element constraints and hand it to the
             # solver (its newest history entry D[0] is the current state), so drift cannot pile up
@@ -360,22 +437,13 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
             raw_err = max(raw_err, raw)
             worst_drop = max(worst_drop, (phi_prev - phi) / drive)
             phi_prev = phi
-            ts.append(solver.t)
+            ts.append(offset + solver.t)
             lams.append(lam_of(phi))
-            dens.append(solver.dense_output())
+            dens.append((offset, solver.dense_output()))
             if lams[-1] >= lam_stop:
                 break
-            if solver.t > 10.0 * t_scale:
-                # stalled: over the last decade of time the path gained less than a thousandth of
-                # what remains (a metric that relaxes on a far longer time scale, or is stuck)
-                j = int(np.searchsorted(ts, solver.t / 10.0))
-                if lams[-1] - lams[j] < 1e-3 * (1.0 - lams[-1]):
-                    status, reason = "incomplete", (
-                        f"stalled at progress {lams[-1]:.6g} after {solver.t:.3g} s ({solver.t / t_scale:.3g} x the "
-                        "observed relaxation): less than 1e-3 of the remaining progress in the last decade of time")
-                    break
-            if solver.status == "finished":
-                status, reason = "incomplete", (f"time limit {solver.t:.3g} s ({settings.time_factor:g} x the observed "
+            if ts[-1] > t_end:
+                status, reason = "incomplete", (f"time limit {ts[-1]:.3g} s ({settings.time_factor:g} x the observed "
                                                 f"relaxation) reached at progress {lams[-1]:.6g}: the metric relaxes "
                                                 "far more slowly than the kinetics, or towards a constrained equilibrium")
                 break
@@ -391,8 +459,11 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
 
     ts_a, lams_a = np.asarray(ts), np.maximum.accumulate(np.asarray(lams))
 
+    def z_at(t, k):
+        return dens[k][1](t - dens[k][0])
+
     def lam_at(t, k):
-        n, T, _ = project_state(dens[k](t))
+        project_state(z_at(t, k))
         return lam_of(system.potential())
 
     phi_grid_prev, grid_drop = np.nan, 0.0
@@ -407,7 +478,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
             T = system.temperature
         else:
             t = _level_time(lambda s: lam_at(s, k - 1), ts_a[k - 1], ts_a[k], lams[k - 1], lams[k], level)
-            n, T, _ = project_state(dens[k - 1](t))
+            n, T, _ = project_state(z_at(t, k - 1))
         e_err = max(e_err, float(np.max(np.abs(elements @ n - target) / e_scale)))
         u_err = max(u_err, abs(system.held_energy() - u0) / max(abs(u0), 1e-300))
         phi = system.potential()

@@ -35,7 +35,9 @@ class SeaSettings:
     time_factor : 1, an SEA path stops (status ``incomplete``) after this multiple of the observed
         relaxation time.
     trace_level : 1, amount (over the total) below which a constant or arrhenius mobility is scaled
-        down like mass action (see ``_System._trace``); 0 switches it off.
+        down like mass action (see ``_System._trace``); 0 switches it off. Such species carry
+        less than 1e-4 of the Fisher-Rao angle; without the scaling, a constant metric drains them
+        on time scales far below the solver's resolution.
     """
 
     metrics: tuple[str, ...] = METRICS
@@ -51,8 +53,8 @@ class SeaSettings:
     max_steps: int = 20_000
     max_wall_seconds: float = 120.0
     n_modes: int = 10
-    trace_level: float = 1e-14
-    time_factor: float = 1e3
+    trace_level: float = 1e-8
+    time_factor: float = 1e12
 
     @classmethod
     def from_mapping(cls, mapping: dict | None) -> "SeaSettings":
