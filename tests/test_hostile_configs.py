@@ -38,13 +38,14 @@ BASE = {
     "stop": {"max_time": 0.5, "progress_tolerance": 1e-8, "ignition_rise": 50.0},
     "solver": {"rtol": 1e-10, "atol": 1e-20, "max_steps": 100000},
     "reactor_volume": 1e-3,
-    "storage": {"max_samples": 200},
+    "storage": {"max_samples": 200, "max_bytes": 16e6},
     "batch": {"cases_per_job": 4, "max_cases": 1000},
 }
 
 # (path, kind) of every leaf a user sets; kind says what damage applies.
 NUMBER_LEAVES = ["temperature[0]", "pressure[0]", "feed.equivalence_ratio[1]", "stop.max_time",
-                 "stop.progress_tolerance", "stop.ignition_rise", "solver.rtol", "solver.atol", "reactor_volume"]
+                 "stop.progress_tolerance", "stop.ignition_rise", "solver.rtol", "solver.atol", "reactor_volume",
+                 "storage.max_bytes"]
 INTEGER_LEAVES = ["solver.max_steps", "storage.max_samples", "batch.cases_per_job", "batch.max_cases"]
 LIST_LEAVES = ["reactors", "temperature", "pressure", "feed.equivalence_ratio", "compositions"]
 STRING_LEAVES = ["mechanism", "study", "feed.fuel", "feed.oxidizer", "compositions[0].composition",

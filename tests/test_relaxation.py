@@ -113,6 +113,25 @@ def test_samples_are_bounded_and_placed_where_the_path_changes(case_files):
     assert near >= 20  # uniform-in-time sampling of a 5 s run would put ~0 samples there
 
 
+def test_byte_budget_bounds_large_mechanisms(tmp_path):
+    """The stored-sample budget in bytes: the sample count follows from the float32 arrays of a
+    sample (5 per reaction, 1 per species; 4 bytes each), as in the netCDF variable definitions."""
+    from sigmagrid import store
+    from conftest import _config
+    from sigmagrid import grid as grid_mod, runner
+
+    assert store.sample_budget(500, 16e6, 325, 53) == 500  # gri30: 6.7 kB a sample
+    assert store.sample_budget(500, 16e6, 5336, 1268) == 16e6 // (4 * (5 * 5336 + 1268 + 12))
+    assert store.sample_budget(500, 1e5, 5336, 1268) == store.MIN_SAMPLES
+    config = _config(reactors=["isolated"], storage={"max_samples": 500, "max_bytes": 1e5})
+    case = grid_mod.expand(config).cases[0]
+    ds = runner.run_single(config, case, tmp_path / "case.nc")
+    per_sample = 4 * (5 * ds.sizes["reaction"] + ds.sizes["species"] + 12)
+    assert ds.attrs["stored_sample_budget"] == 100_000 // per_sample
+    assert ds.sizes["time"] <= 100_000 // per_sample
+    assert ds.attrs["status"] == "relaxed"
+
+
 def _modified_mechanism(tmp_path, edit):
     data = yaml.safe_load(open(mechanism.resolve("h2o2.yaml")))
     edit(data)

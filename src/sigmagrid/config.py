@@ -26,7 +26,7 @@ DEFAULTS: dict[str, Any] = {
     "stop": {"max_time": 10.0, "progress_tolerance": 1e-8, "ignition_rise": 50.0},
     "solver": {"rtol": 1e-10, "atol": 1e-20, "max_steps": 200_000},
     "reactor_volume": 1e-3,
-    "storage": {"max_samples": 500},
+    "storage": {"max_samples": 500, "max_bytes": 16e6},
     "batch": {"cases_per_job": 8, "max_cases": 20_000},
     "sea": {"enabled": True},
     "progress_grid": {"points": 101},

@@ -220,6 +220,10 @@ def _potential(reactor_type: str, mass: float, gas: ct.Solution) -> tuple[float,
     return entropy, entropy
 
 
+#: species count from which the equilibrium is computed with Cantera's VCS solver first
+LARGE_EQUILIBRIUM_SPECIES = 300
+
+
 def equilibrium_of(gas: ct.Solution, reactor_type: str, mass: float) -> EquilibriumState:
     """Cantera's equilibrium with the reactor's pair held fixed, from the gas's current state.
 
@@ -227,7 +231,17 @@ def equilibrium_of(gas: ct.Solution, reactor_type: str, mass: float) -> Equilibr
     """
     saved = gas.state
     try:
-        gas.equilibrate(_HELD_FIXED[reactor_type])
+        pair = _HELD_FIXED[reactor_type]
+        if gas.n_species >= LARGE_EQUILIBRIUM_SPECIES:
+            # Cantera's "auto" first tries the element-potential solver, which fails on large
+            # mechanisms after about 0.2 s (of 0.8 s on 1268 species) before it falls back to VCS
+            try:
+                gas.equilibrate(pair, solver="vcs")
+            except ct.CanteraError:
+                gas.state = saved
+                gas.equilibrate(pair)
+        else:
+            gas.equilibrate(pair)
         s, phi = _potential(reactor_type, mass, gas)
         return EquilibriumState(gas.T, gas.P, mass / gas.density, gas.X.copy(), s, phi)
     finally:

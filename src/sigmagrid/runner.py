@@ -31,6 +31,7 @@ from .reactors import Relaxation, RelaxSettings, relax
 class RunSettings:
     relax: RelaxSettings
     max_samples: int = 500
+    max_bytes: float = 16e6  # bytes of stored float32 samples per case, before compression
     sea: "sea_mod.SeaSettings | None" = None  # None: no steepest-entropy-ascent comparison
 
     @classmethod
@@ -42,6 +43,7 @@ class RunSettings:
                                 atol=float(solver["atol"]), max_steps=int(solver["max_steps"]),
                                 volume=float(config["reactor_volume"])),
             max_samples=int(config["storage"]["max_samples"]),
+            max_bytes=float(config["storage"]["max_bytes"]),
             sea=_sea_settings(config.get("sea", {})),
         )
 
@@ -91,8 +93,9 @@ def run_case(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInf
     ignition_index = ()
     if np.isfinite(relaxation.ignition_delay):
         ignition_index = (int(np.searchsorted(relaxation.time, relaxation.ignition_delay)),)
+    budget = store.sample_budget(settings.max_samples, settings.max_bytes, gas.n_reactions, gas.n_species)
     idx = store.choose_samples(relaxation.time, relaxation.progress, relaxation.temperature,
-                               settings.max_samples, keep=ignition_index)
+                               budget, keep=ignition_index)
     state = diagnostics.evaluate(gas, relaxation.temperature[idx], relaxation.density[idx],
                                  np.clip(relaxation.mass_fractions[idx], 0.0, None))
     screen = safety.screen_flammability(mole_fractions)
@@ -102,6 +105,7 @@ def run_case(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInf
         equations=info.equations, species=info.species,
         equilibrium_mole_fractions=eq.mole_fractions if eq else None, flammability=screen, provenance=meta,
     )
+    ds.attrs["stored_sample_budget"] = budget
     if settings.sea is not None:
         # never raises for a failing SEA path: its status and reason are stored per metric
         ds = ds.merge(sea_mod.compare(gas, info, relaxation, idx, settings.sea), compat="override")

@@ -94,6 +94,25 @@ def choose_samples(time: np.ndarray, progress: np.ndarray, temperature: np.ndarr
     return idx
 
 
+#: Float32 arrays stored per sample: affinity, forward, reverse and net rate, entropy production
+#: (per reaction), mole fractions (per species) and a dozen scalars.
+_PER_REACTION_ARRAYS = 5
+_PER_SAMPLE_SCALARS = 12
+MIN_SAMPLES = 20
+
+
+def sample_budget(max_samples: int, max_bytes: float, n_reactions: int, n_species: int) -> int:
+    """Stored samples of one case: ``max_samples``, fewer where their float32 arrays would exceed
+    ``max_bytes`` (bytes before compression), never fewer than :data:`MIN_SAMPLES`.
+
+    On gri30 (325 reactions) a sample is 6.7 kB, so the default 16 MB keeps all 500 samples; on a
+    5336-reaction mechanism a sample is 107 kB and the budget keeps 150 (a 500-sample file was
+    29 MB and took 1.5 s to compress). Integrals and balances use every solver step regardless.
+    """
+    per_sample = 4 * (_PER_REACTION_ARRAYS * n_reactions + n_species + _PER_SAMPLE_SCALARS)
+    return int(max(MIN_SAMPLES, min(max_samples, max_bytes // per_sample)))
+
+
 def _attrs(units: str, long_name: str, **extra) -> dict:
     return {"units": units, "long_name": long_name, **extra}
 

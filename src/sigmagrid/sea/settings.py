@@ -54,7 +54,7 @@ class SeaSettings:
     max_wall_seconds: float = 120.0
     n_modes: int = 10
     trace_level: float = 1e-8
-    time_factor: float = 1e12
+    time_factor: float = 1e15
 
     @classmethod
     def from_mapping(cls, mapping: dict | None) -> "SeaSettings":
