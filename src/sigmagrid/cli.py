@@ -74,7 +74,8 @@ def cmd_batch(args) -> int:
     batches = grid.batches(config["batch"]["cases_per_job"])
     if not 0 <= args.index < len(batches):
         raise InputError("--index", f"must be between 0 and {len(batches) - 1}, got {args.index}")
-    runner.run_cases(config, list(batches[args.index]), args.out, report=lambda line: print(line, flush=True))
+    runner.run_cases(config, list(batches[args.index]), args.out, report=lambda line: print(line, flush=True),
+                     grid=grid)
     return 0
 
 

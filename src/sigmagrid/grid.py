@@ -8,7 +8,7 @@ import json
 import math
 import re
 import warnings
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 import cantera as ct
@@ -43,6 +43,8 @@ class Grid:
     mechanism_path: Path
     mechanism_sha256: str
     cases: tuple[Case, ...]
+    #: the mechanism as parsed for the expansion, so that a batch does not parse it twice
+    gas: ct.Solution | None = field(default=None, compare=False, repr=False)
 
     def batches(self, cases_per_job: int) -> list[tuple[Case, ...]]:
         """Cases in fixed-size batches, in id order so a batch's members do not depend on dict order."""
@@ -171,4 +173,4 @@ def expand(config: dict, project_root: str | Path | None = None) -> Grid:
     if len(set(ids)) != len(ids):
         raise InputError("grid", "two grid points describe the same physical case (same composition, "
                          "temperature, pressure and reactor); remove the duplicate")
-    return Grid(mechanism_path=path, mechanism_sha256=sha, cases=tuple(cases))
+    return Grid(mechanism_path=path, mechanism_sha256=sha, cases=tuple(cases), gas=gas)
