@@ -52,12 +52,24 @@ Onsager, L. (1931), Reciprocal relations in irreversible processes I, Phys. Rev.
 de Groot, S. R. and Mazur, P. (1962), Non-Equilibrium Thermodynamics, North-Holland.
 """
 
-from .compare import compare
-from .metrics import (alignment, fisher_rao_angle, fit_arrhenius, fit_diagonal, fit_quality, fit_scalar,
-                      log_mean_mobility, path_weights, progress_grid)
+import importlib
+
 from .settings import (IRREVERSIBLE_TREATMENTS, METRICS, N_SLOW_COMPARED, PROGRESS_LEVELS, WEIGHTS,
                        SeaSettings)
-from .spectra import kinetics_spectrum, sea_spectrum
+
+# The numerics load on first use: they pull in scipy.integrate (0.3 s of every batch job's start,
+# also where the comparison is switched off).
+_LAZY = {"compare": "compare", "kinetics_spectrum": "spectra", "sea_spectrum": "spectra",
+         **{name: "metrics" for name in ("alignment", "fisher_rao_angle", "fit_arrhenius", "fit_diagonal",
+                                        "fit_quality", "fit_scalar", "log_mean_mobility", "path_weights",
+                                        "progress_grid")}}
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        return getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
 
 __all__ = ["compare", "SeaSettings", "METRICS", "WEIGHTS", "IRREVERSIBLE_TREATMENTS", "PROGRESS_LEVELS",
            "N_SLOW_COMPARED", "alignment", "fisher_rao_angle", "fit_arrhenius", "fit_diagonal", "fit_quality",
