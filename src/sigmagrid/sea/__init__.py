@@ -59,7 +59,7 @@ from .settings import (IRREVERSIBLE_TREATMENTS, METRICS, N_SLOW_COMPARED, PROGRE
 
 # The numerics load on first use: they pull in scipy.integrate (0.3 s of every batch job's start,
 # also where the comparison is switched off).
-_LAZY = {"compare": "compare", "kinetics_spectrum": "spectra", "sea_spectrum": "spectra",
+_LAZY = {"compare": "comparison", "kinetics_spectrum": "spectra", "sea_spectrum": "spectra",
          **{name: "metrics" for name in ("alignment", "fisher_rao_angle", "fit_arrhenius", "fit_diagonal",
                                         "fit_quality", "fit_scalar", "log_mean_mobility", "path_weights",
                                         "progress_grid")}}
@@ -67,7 +67,9 @@ _LAZY = {"compare": "compare", "kinetics_spectrum": "spectra", "sea_spectrum": "
 
 def __getattr__(name):
     if name in _LAZY:
-        return getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+        value = getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+        globals()[name] = value
+        return value
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
