@@ -27,10 +27,13 @@ def test_case_then_show(tmp_path):
         for key in ("mechanism", "mechanism_sha256", "sigmagrid_version", "cantera_version", "config_sha256",
                     "reactor", "status"):
             assert ds.attrs[key], key
+        # the SEA settings travel with the file (the merge of the comparison keeps them)
+        assert ds.attrs["sea_weight"] == "entropy" and ds.attrs["sea_irreversible"] == "reversible"
     shown = run_cli("show", str(out))
     assert shown.returncode == 0
     for text in ("relaxed", "balance residual", "closed-vessel pressure ratio", "caution", "sha256",
-                 "top 8 reactions"):
+                 "top 8 reactions", "steepest-entropy-ascent comparison (from progress 0.01; fits weighted by entropy",
+                 "log-mean          ok", "onsager", "fitted-arrhenius", "slowest relaxation rates at equilibrium"):
         assert text in shown.stdout, text
 
 

@@ -45,6 +45,7 @@ def describe_case(path, top: int = 8) -> str:
         lines.append(f"  top {len(order)} reactions by entropy produced:")
         for j in order:
             lines.append(f"    {produced[j] / total:8.2%}  {produced[j]:10.3e} J/K  {ds['reaction'].values[j]}")
+    lines += _sea_lines(ds)
     ratio = float(ds["closed_vessel_pressure_ratio"])
     lines += ["  safety:",
               f"    flammable range at ambient: {a.get('flammability_at_ambient', 'unknown')} "
@@ -59,3 +60,42 @@ def describe_case(path, top: int = 8) -> str:
               f"    sigmagrid {a.get('sigmagrid_version', '?')}, Cantera {a.get('cantera_version', '?')}, "
               f"Python {a.get('python_version', '?')}, numpy {a.get('numpy_version', '?')}"]
     return "\n".join(lines)
+
+
+def _sea_lines(ds) -> list[str]:
+    """The steepest-entropy-ascent comparison per metric, if the case file has one."""
+    if "sea_status" not in ds:
+        return []
+    a = ds.attrs
+    if a.get("sea_skipped_reason"):
+        return [f"  steepest-entropy-ascent comparison: skipped ({a['sea_skipped_reason']})"]
+    grid = ds["progress"].values
+    settings = []  # files written before the settings were kept have none
+    if "sea_start_progress" in a:
+        settings.append(f"from progress {a['sea_start_progress']:g}")
+    if "sea_weight" in a:
+        settings.append(f"fits weighted by {a['sea_weight']}")
+    share = _fmt(float(ds["irreversible_entropy_share"]), "", ".2e")
+    settings.append(f"irreversible reactions{' ' + a['sea_irreversible'] if 'sea_irreversible' in a else ''}, "
+                    f"{share}of the entropy production")
+    lines = [f"  steepest-entropy-ascent comparison ({'; '.join(settings)}):",
+             "    metric            status      R^2     reached  largest angle  time ratio 50/90/99 %   "
+             "slow modes  wall"]
+    for i, metric in enumerate(ds["metric"].values):
+        t = ds["sea_time"].values[i]
+        reached = grid[np.isfinite(t)].max() if np.isfinite(t).any() else float("nan")
+        ratios = "/".join("-" if not np.isfinite(r) else f"{r:.3g}" for r in ds["time_ratio"].values[i])
+        lines.append(f"    {str(metric):<17} {str(ds['sea_status'].values[i]):<10} "
+                     f"{float(ds['fit_quality'].values[i]):7.3f}  {reached:8.6g}  "
+                     f"{float(ds['largest_path_angle'].values[i]):9.3g} rad  {ratios:<22} "
+                     f"{float(ds['slow_mode_difference'].values[i]):9.2e}  {float(ds['sea_wall_time'].values[i]):.2f} s")
+    for i, metric in enumerate(ds["metric"].values):
+        reason = str(ds["sea_reason"].values[i])
+        if reason:
+            lines.append(f"    {metric}: {reason[:240]}")
+    rates = ds["relaxation_rates_kinetics"].values
+    if np.isfinite(rates).any():
+        lines.append("    slowest relaxation rates at equilibrium, kinetics (Cantera Jacobian) / onsager: "
+                     + ", ".join(f"{k:.4g}/{s:.4g}" for k, s in
+                                 zip(rates[:5], ds["relaxation_rates_sea"].values[:5])) + " s-1")
+    return lines

@@ -108,7 +108,9 @@ def run_case(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInf
     ds.attrs["stored_sample_budget"] = budget
     if settings.sea is not None:
         # never raises for a failing SEA path: its status and reason are stored per metric
-        ds = ds.merge(sea_mod.compare(gas, info, relaxation, idx, settings.sea), compat="override")
+        sea_ds = sea_mod.compare(gas, info, relaxation, idx, settings.sea)
+        ds = ds.merge(sea_ds, compat="override")
+        ds.attrs.update(sea_ds.attrs)  # merge keeps the first attributes only: the SEA settings and skip reason
     return ds
 
 
