@@ -76,8 +76,9 @@ def _sea_lines(ds) -> list[str]:
     if "sea_weight" in a:
         settings.append(f"fits weighted by {a['sea_weight']}")
     share = _fmt(float(ds["irreversible_entropy_share"]), "", ".2e")
-    settings.append(f"irreversible reactions{' ' + a['sea_irreversible'] if 'sea_irreversible' in a else ''}, "
-                    f"{share}of the entropy production")
+    treatment = {"reversible": " given their thermodynamic reverse", "omit": " left out"}.get(
+        a.get("sea_irreversible", ""), "")
+    settings.append(f"irreversible reactions{treatment}, {share}of the entropy production")
     lines = [f"  steepest-entropy-ascent comparison ({'; '.join(settings)}):",
              "    metric            status      R^2     reached  largest angle  time ratio 50/90/99 %   "
              "slow modes  wall"]
@@ -86,7 +87,7 @@ def _sea_lines(ds) -> list[str]:
         reached = grid[np.isfinite(t)].max() if np.isfinite(t).any() else float("nan")
         ratios = "/".join("-" if not np.isfinite(r) else f"{r:.3g}" for r in ds["time_ratio"].values[i])
         lines.append(f"    {str(metric):<17} {str(ds['sea_status'].values[i]):<10} "
-                     f"{float(ds['fit_quality'].values[i]):7.3f}  {reached:8.6g}  "
+                     f"{float(ds['fit_quality'].values[i]):8.3g} {reached:8.6g}  "
                      f"{float(ds['largest_path_angle'].values[i]):9.3g} rad  {ratios:<22} "
                      f"{float(ds['slow_mode_difference'].values[i]):9.2e}  {float(ds['sea_wall_time'].values[i]):.2f} s")
     for i, metric in enumerate(ds["metric"].values):
