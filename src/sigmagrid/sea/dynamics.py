@@ -26,14 +26,16 @@ _R = GAS_CONSTANT  # J/(mol K)
 _RESTARTS = 50
 
 
-def _onset(u):
-    """exp(-1/u) for u > 0, 0 otherwise: a switch-on that is smooth (C-infinity) at u = 0."""
-    pos = u > 0
-    return np.where(pos, np.exp(-1.0 / np.where(pos, u, 1.0)), 0.0)
+def _onsets(x):
+    """(a(x), a(-x)) with a(u) = exp(-1/u) for u > 0, else 0: a switch-on that is smooth
+    (C-infinity) at u = 0; one exponential for both."""
+    u = np.abs(x)
+    e = np.exp(-1.0 / np.where(u > 0, u, 1.0))
+    return np.where(x > 0, e, 0.0), np.where(x < 0, e, 0.0)
 
 
 def _onset_slope(u, a):
-    """d/du of :func:`_onset`, given its value a."""
+    """d/du of a(u) = exp(-1/u) (see :func:`_onsets`), given its value a."""
     pos = u > 0
     return np.where(pos, a / np.where(pos, u, 1.0) ** 2, 0.0)
 
@@ -83,6 +85,8 @@ class _System:
         # which active species each reaction consumes when it runs forward (reac) or backward (prod)
         self.reac_a = (gas.reactant_stoich_coeffs[np.ix_(active, reactions)] > 0).astype(float)  # (na, nr_in)
         self.prod_a = (gas.product_stoich_coeffs[np.ix_(active, reactions)] > 0).astype(float)
+        self._sides_T = np.ascontiguousarray(np.vstack([self.reac_a.T, self.prod_a.T]))  # (2 nr_in, na)
+        self._nr_in = len(reactions)
         self.eps = trace_level * self.n_ref  # mol
         self._cache = None  # species energies and heat capacities at the last temperature
         self.n_rhs = 0
@@ -92,7 +96,7 @@ class _System:
 
     # state --------------------------------------------------------------------------------
     def amounts(self, z: np.ndarray) -> np.ndarray:
-        if not (np.all(np.isfinite(z)) and z.max() < 50.0):  # a trial state of the solver, far off
+        if not z.max() < 50.0:  # a trial state of the solver, far off (False for NaN too)
             raise _OffConstraint("amounts out of range")
         n = self.n_full.copy()
         n[self.active] = self.n_ref * np.exp(z)
@@ -186,10 +190,11 @@ class _System:
             return q, rr, None
         m = mob.m if mob.kind == "constant" else mob.m * np.exp(-mob.b * (1.0 / T - 1.0 / mob.t_ref))
         if self.eps > 0:
+            # g = g_r g_p + g_r (1 - g_p) a(x) + g_p (1 - g_r) a(-x), of which one a is zero
             gr, gp = self._g_reac, self._g_prod
-            af, ab = _onset(x), _onset(-x)  # 0 at and below x = 0 (with all derivatives), -> 1
-            g = gr * gp + gr * (1.0 - gp) * af + gp * (1.0 - gr) * ab
-            self._switch = af, ab, g
+            both = gr * gp
+            g = both + (np.where(x > 0, gr, gp) - both) * np.exp(-1.0 / np.maximum(np.abs(x), 1e-300))
+            self._g_mix = g
             return m * g * x, None, m
         return m * x, None, m
 
@@ -207,12 +212,8 @@ class _System:
         """
         if not self.eps > 0:
             return
-        na = n[self.active]
-        ratio = self.eps / na
-        lr = np.log1p(ratio)
-        self._g_reac = np.exp(-(self.reac_a.T @ lr))
-        self._g_prod = np.exp(-(self.prod_a.T @ lr))
-        self._trace_slope = ratio / (1.0 + ratio)  # d ln g / d z_k of each consumed species
+        g = np.exp(-(self._sides_T @ np.log1p(self.eps / n[self.active])))  # both sides in one product
+        self._g_reac, self._g_prod = g[:self._nr_in], g[self._nr_in:]
 
     def rhs(self, t, z):
         self.n_rhs += 1
@@ -273,14 +274,17 @@ class _System:
             dq = q[:, None] * dlnr + rr[:, None] * dx
         else:
             if self.eps > 0:
-                af, ab, gmix = self._switch
+                gmix = self._g_mix
+                af, ab = _onsets(x)
                 gr, gp = self._g_reac, self._g_prod
+                ratio = self.eps / n[self.active]
+                slope = ratio / (1.0 + ratio)  # d ln(N/(N + eps)) / d z
                 dg_dx = gr * (1.0 - gp) * _onset_slope(x, af) - gp * (1.0 - gr) * _onset_slope(-x, ab)
                 dg_dlr = gr * (gp + (1.0 - gp) * af - gp * ab)  # d g / d ln g_r
                 dg_dlp = gp * (gr - gr * af + (1.0 - gr) * ab)  # d g / d ln g_p
                 dq = (m * (gmix + x * dg_dx))[:, None] * dx
                 dq += (m * x)[:, None] * (dg_dlr[:, None] * self.reac_a.T
-                                          + dg_dlp[:, None] * self.prod_a.T) * self._trace_slope[None, :]
+                                          + dg_dlp[:, None] * self.prod_a.T) * slope[None, :]
             else:
                 gmix = 1.0
                 dq = m[:, None] * dx
