@@ -99,7 +99,9 @@ class _System:
         if not z.max() < 50.0:  # a trial state of the solver, far off (False for NaN too)
             raise _OffConstraint("amounts out of range")
         n = self.n_full.copy()
-        n[self.active] = self.n_ref * np.exp(z)
+        # at least 1e-300 mol: ln N of a drained species can pass -745 on a long path, and an exact
+        # zero would turn N/(N + eps) and dz/dt = V nu q / N into 0/0
+        n[self.active] = np.maximum(self.n_ref * np.exp(z), 1e-300)
         return n
 
     def z_of(self, n: np.ndarray) -> np.ndarray:
@@ -212,7 +214,8 @@ class _System:
         """
         if not self.eps > 0:
             return
-        g = np.exp(-(self._sides_T @ np.log1p(self.eps / n[self.active])))  # both sides in one product
+        ratio = self.eps / n[self.active]
+        g = np.exp(-(self._sides_T @ np.log1p(ratio)))  # both sides in one product
         self._g_reac, self._g_prod = g[:self._nr_in], g[self._nr_in:]
 
     def rhs(self, t, z):
