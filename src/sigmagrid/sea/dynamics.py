@@ -258,10 +258,6 @@ class _System:
         Third-body and falloff dependence of the one-way rates on composition is left out of the
         log-mean Jacobian (it only steers Newton's iteration, not the solution).
         """
-        return self._jacobian(z)[0]
-
-    def _jacobian(self, z):
-        """(J, f, x, q, dx, dq, dlnv, n, T, V) of the time dynamics at z."""
         self.n_jac += 1
         n, T, V = self.state(z)
         g = self.gas
@@ -298,7 +294,7 @@ class _System:
         f = V * flux / na
         J = (V * (self.nu_sp @ dq) + np.outer(flux, V * dlnv)) / na[:, None]
         J[np.diag_indices_from(J)] -= f
-        return J, f, x, q, dx, dq, dlnv, n, T, V
+        return J
 
     # observables --------------------------------------------------------------------------
     def potential(self):
