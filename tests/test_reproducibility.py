@@ -127,4 +127,6 @@ def test_a_rerun_redoes_only_cases_whose_settings_changed(tmp_path):
     assert _computed(_run(tmp_path, changed)) == 6
     settings = config_mod.settings_hash(config_mod.validate(changed))
     assert {store.open_case(p).attrs["settings_sha256"] for p in cases.glob("*.nc")} == {settings}
-    count_tried("reproducibility: reruns checked for what they recompute", 4)
+    with_sea = dict(changed, sea={"metrics": ["log-mean"]})  # the SEA comparison is in the case file too
+    assert _computed(_run(tmp_path, with_sea)) == 6
+    count_tried("reproducibility: reruns checked for what they recompute", 5)

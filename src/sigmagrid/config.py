@@ -232,7 +232,7 @@ def config_hash(config: dict) -> str:
 
 
 #: The config keys that change the result of a case (the grid axes change which cases exist).
-CASE_SETTINGS = ("stop", "solver", "reactor_volume", "storage")
+CASE_SETTINGS = ("stop", "solver", "reactor_volume", "storage", "sea")  # the SEA result is in the case file
 
 
 def settings_hash(config: dict) -> str:
