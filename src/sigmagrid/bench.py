@@ -206,7 +206,9 @@ def sea_ratio(repeats: int) -> dict:
     for _ in range(repeats):
         r = relax(pipeline.gas, pipeline.info, case.reactor, case.temperature, case.pressure,
                   case.mole_fractions(), settings)
-        idx = store.choose_samples(r.time, r.progress, r.temperature, pipeline.settings.max_samples)
+        budget = store.sample_budget(pipeline.settings.max_samples, pipeline.settings.max_bytes,
+                                     pipeline.gas.n_reactions, pipeline.gas.n_species)
+        idx = store.choose_samples(r.time, r.progress, r.temperature, budget)  # as runner.run_case does
         ds = sea.compare(pipeline.gas, pipeline.info, r, idx, sea.SeaSettings())
         t_bare = bare_cantera(gas, case, settings, float(r.time[-1]))
         for metric, seconds, status in zip(ds["metric"].values, ds["sea_wall_time"].values, ds["sea_status"].values):
