@@ -413,9 +413,11 @@ def relax(
 class _PathRecorder:
     """Collects the full-resolution path step by step and integrates V sigma_j over it.
 
-    Per step only Cantera's arrays are copied (cheap); entropy production, its integral and the
-    sign audit are computed in vectorized chunks so that the per-step cost stays close to that of
-    appending a state to a SolutionArray, and memory stays bounded for large mechanisms.
+    Per step only Cantera's arrays are copied into preallocated chunk buffers (the state vector
+    T, rho, Y in one call, then the affinities and net rates); entropy production, its integral,
+    and the sign audit are computed in vectorized chunks, so that the per-step cost
+    stays close to that of appending a state to a SolutionArray and memory stays bounded for
+    large mechanisms.
     """
 
     CHUNK = 256
@@ -423,39 +425,44 @@ class _PathRecorder:
     def __init__(self, gas: ct.Solution, reactor_type: str, mass: float, tracker: SignTracker):
         self.gas, self.reactor_type, self.mass, self.tracker = gas, reactor_type, mass, tracker
         self.times, self.potentials = [], []
-        self._T, self._P, self._rho, self._Y, self._S, self._V = [], [], [], [], [], []
-        self._A, self._q = [], []
+        self._states, self._S, self._V, self._P = [], [], [], []
+        ns, nr = gas.n_species, gas.n_reactions
+        self._state_buf = np.empty((self.CHUNK, ns + 2))
+        self._dg_buf = np.empty((self.CHUNK, nr))  # J/kmol, delta Gibbs (minus the affinity)
+        self._q_buf = np.empty((self.CHUNK, nr))  # kmol/(m3 s)
+        self._fill = 0
         self._sigma_total: list[np.ndarray] = []
-        self.produced = np.zeros(gas.n_reactions)
+        self.produced = np.zeros(nr)
         self._last = None  # (t, V sigma_j) of the last processed step
 
     def record(self, t: float, volume: float) -> None:
         gas = self.gas
+        i = self._fill
+        self._state_buf[i] = gas.state  # T, rho, Y
+        self._dg_buf[i] = gas.delta_gibbs
+        self._q_buf[i] = gas.net_rates_of_progress
         self.times.append(t)
-        self._T.append(gas.T)
-        self._P.append(gas.P)
-        self._rho.append(gas.density)
-        self._Y.append(gas.Y)
         self._V.append(volume)
-        self._A.append(gas.delta_gibbs)
-        self._q.append(gas.net_rates_of_progress)
+        self._P.append(gas.P)  # one call; an equation of state other than the ideal gas is possible
         s, phi = _potential(self.reactor_type, self.mass, gas)
         self._S.append(s)
         self.potentials.append(phi)
-        if len(self._A) >= self.CHUNK:
+        self._fill = i + 1
+        if self._fill == self.CHUNK:
             self._flush()
 
     def _flush(self) -> None:
-        if not self._A:
+        n = self._fill
+        if not n:
             return
-        n = len(self._A)
+        self._fill = 0
+        states = self._state_buf[:n].copy()
+        self._states.append(states)
+        T = states[:, 0]
         t = np.asarray(self.times[-n:])
-        T = np.asarray(self._T[-n:])
         V = np.asarray(self._V[-n:])
-        # J/kmol * kmol/(m3 s) = J/(m3 s): the kmol factors cancel in A q
-        sigma = -np.asarray(self._A) * np.asarray(self._q) / T[:, None]
-        self._A.clear()
-        self._q.clear()
+        # J/kmol * kmol/(m3 s) = J/(m3 s): the kmol factors cancel in A q; A = -delta G
+        sigma = -self._dg_buf[:n] * self._q_buf[:n] / T[:, None]
         self.tracker.update(sigma)
         self._sigma_total.append(sigma.sum(axis=1))
         vs = sigma * V[:, None]
@@ -468,9 +475,10 @@ class _PathRecorder:
 
     def finish(self) -> dict:
         self._flush()
-        n = len(self.times)
-        return dict(time=np.asarray(self.times), temperature=np.asarray(self._T), pressure=np.asarray(self._P),
-                    density=np.asarray(self._rho), mass_fractions=np.asarray(self._Y).reshape(n, self.gas.n_species),
+        ns = self.gas.n_species
+        states = np.concatenate(self._states) if self._states else np.zeros((0, ns + 2))
+        return dict(time=np.asarray(self.times), temperature=states[:, 0], pressure=np.asarray(self._P),
+                    density=states[:, 1], mass_fractions=states[:, 2:],
                     entropy=np.asarray(self._S), potential=np.asarray(self.potentials),
                     entropy_production_total=np.concatenate(self._sigma_total) if self._sigma_total else np.zeros(0),
                     entropy_produced=self.produced)
