@@ -427,3 +427,35 @@ def test_duplicate_with_negative_prefactor_and_absent_element():
     for g in np.unique(groups[info.negative_prefactor]):
         members = np.flatnonzero(groups == g)
         assert members.size > 1 and np.all(m[members] == m[members[0]])
+
+
+@pytest.mark.parametrize("reactor", ["isolated", "constant-pressure", "isothermal"])
+@pytest.mark.parametrize("kind", ["constant", "arrhenius"])
+def test_analytic_jacobian_against_finite_differences(h2o2_gas, reactor, kind):
+    """The SEA Jacobian (``_System.jac``) against central differences of the right-hand side,
+    column by column: a calculus identity, on a state with trace species (the trace scaling in
+    play) and reactions on both sides of their partial equilibria."""
+    from sigmagrid.sea.dynamics import _Mobility, _System
+
+    gas, info = h2o2_gas
+    gas.TPX = 1400.0, 2 * ct.one_atm, "H2:2, O2:1, N2:3.76, H:1e-11, OH:3e-4, O:1e-5, HO2:2e-6, H2O2:1e-6, H2O:0.3"
+    n = 0.04 * gas.X
+    active = np.flatnonzero(np.abs(gas.product_stoich_coeffs - gas.reactant_stoich_coeffs).sum(axis=1) > 0)
+    rx = np.arange(gas.n_reactions)
+    rng = np.random.default_rng(3)
+    m = 10.0 ** rng.uniform(-2, 2, rx.size)
+    mob = _Mobility("constant", m) if kind == "constant" else _Mobility("arrhenius", m, rng.uniform(0, 2e4, rx.size), 1500.0)
+    mass = float(n @ gas.molecular_weights) / 1e3
+    volume = mass / gas.density
+    system = _System(gas, reactor, mass, n, active, rx, info.reversible, volume, gas.P, 1400.0, mob, 1e-8)
+    z = system.z_of(n)
+    J = system.jac(0.0, z)
+    fd = np.empty_like(J)
+    for i in range(z.size):
+        d = 1e-6 * max(1.0, abs(z[i]))
+        up, down = z.copy(), z.copy()
+        up[i] += d
+        down[i] -= d
+        fd[:, i] = (system.rhs(0.0, up) - system.rhs(0.0, down)) / (2 * d)
+    scale = np.abs(J).max(axis=1, keepdims=True)
+    np.testing.assert_allclose(J / scale, fd / scale, atol=1e-6)
