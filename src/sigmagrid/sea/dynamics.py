@@ -40,6 +40,34 @@ def _onset_slope(u, a):
     return np.where(pos, a / np.where(pos, u, 1.0) ** 2, 0.0)
 
 
+class _WeightedProduct:
+    """A diag(w) B^T for fixed sparse A (p x r) and B (q x r), in one ``np.bincount``.
+
+    The nonzeros of A and B in each column j pair up into (row, column, a_ij b_kj) triples once;
+    each product is then a weighted sum over about r x 16 triples, instead of dense (r x q)
+    temporaries and a sparse-dense product (the SEA Jacobian: 0.35 ms -> 0.1 ms on gri30).
+    """
+
+    def __init__(self, A: np.ndarray, B: np.ndarray):
+        self.shape = (A.shape[0], B.shape[0])
+        rows, cols, coef, cols_j = [], [], [], []
+        for j in range(A.shape[1]):
+            ia, ib = np.flatnonzero(A[:, j]), np.flatnonzero(B[:, j])
+            if ia.size and ib.size:
+                rows.append(np.repeat(ia, ib.size))
+                cols.append(np.tile(ib, ia.size))
+                coef.append(np.outer(A[ia, j], B[ib, j]).ravel())
+                cols_j.append(np.full(ia.size * ib.size, j))
+        empty = np.zeros(0, int)
+        self.index = (np.concatenate(rows) * self.shape[1] + np.concatenate(cols)) if rows else empty
+        self.coef = np.concatenate(coef) if coef else np.zeros(0)
+        self.j = np.concatenate(cols_j) if cols_j else empty
+        self.size = self.shape[0] * self.shape[1]
+
+    def __call__(self, w: np.ndarray) -> np.ndarray:
+        return np.bincount(self.index, weights=self.coef * w[self.j], minlength=self.size).reshape(self.shape)
+
+
 class _OffConstraint(RuntimeError):
     """No temperature satisfies the energy constraint at a trial state of the solver."""
 
@@ -86,6 +114,13 @@ class _System:
         self.reac_a = (gas.reactant_stoich_coeffs[np.ix_(active, reactions)] > 0).astype(float)  # (na, nr_in)
         self.prod_a = (gas.product_stoich_coeffs[np.ix_(active, reactions)] > 0).astype(float)
         self._sides_T = np.ascontiguousarray(np.vstack([self.reac_a.T, self.prod_a.T]))  # (2 nr_in, na)
+        # the Jacobian's products nu diag(w) B^T with B = nu, the reactant orders, or the sides
+        self._nu_nu = _WeightedProduct(self.nu_a, self.nu_a)
+        if mobility.kind == "log-mean":
+            self._nu_orders = _WeightedProduct(self.nu_a, self.orders.T)
+        else:
+            self._nu_reac = _WeightedProduct(self.nu_a, self.reac_a)
+            self._nu_prod = _WeightedProduct(self.nu_a, self.prod_a)
         self._nr_in = len(reactions)
         self.eps = trace_level * self.n_ref  # mol
         self._cache = None  # species energies and heat capacities at the last temperature
@@ -247,11 +282,6 @@ class _System:
             dlnv = na / n.sum()
         return dT, dlnv
 
-    def _dx(self, n, T, dT, dlnv):
-        """d x_j / d z_i, (nr_in, na)."""
-        du = self.gas.standard_int_energies_RT @ self.nu_rx  # Delta u_j / (R T)
-        return -self.nu_a.T + np.outer(self.nu_sum, dlnv) + np.outer(du / T, dT)
-
     def jac(self, t, z):
         """Analytic Jacobian d(dz/dt)/dz: nu, the diagonal mobility and rank-one constraint terms.
 
@@ -264,13 +294,17 @@ class _System:
         x, rf = self._kinetics(T)
         q, rr, m = self._rates(T, x, rf)
         dT, dlnv = self._constraint_derivatives(n, T, V)
-        dx = self._dx(n, T, dT, dlnv)
+        du_T = (g.standard_int_energies_RT @ self.nu_rx) / T  # dx_j/dT at fixed concentrations, 1/K
+        nu = self.nu_a
+        # nu dq, with dx/dz = -nu^T + nu_sum dlnv^T + (du/T) dT^T (see _dx)
         if self.mob.kind == "log-mean":
             kf = g.forward_rate_constants[self.rx]
             with np.errstate(invalid="ignore", divide="ignore"):
                 dlnk = np.where(kf != 0, g.forward_rate_constants_ddT[self.rx] / np.where(kf != 0, kf, 1.0), 0.0)
-            dlnr = self.orders - np.outer(self.order_sum, dlnv) + np.outer(dlnk, dT)
-            dq = q[:, None] * dlnr + rr[:, None] * dx
+            # dq = q dln r+ + r- dx, dln r+/dz = orders - order_sum dlnv^T + dlnk dT^T
+            core = self._nu_orders(q) - self._nu_nu(rr)
+            core += np.outer(nu @ (rr * self.nu_sum - q * self.order_sum), dlnv)
+            core += np.outer(nu @ (q * dlnk + rr * du_T), dT)
         else:
             if self.eps > 0:
                 gmix = self._g_mix
@@ -281,18 +315,21 @@ class _System:
                 dg_dx = gr * (1.0 - gp) * _onset_slope(x, af) - gp * (1.0 - gr) * _onset_slope(-x, ab)
                 dg_dlr = gr * (gp + (1.0 - gp) * af - gp * ab)  # d g / d ln g_r
                 dg_dlp = gp * (gr - gr * af + (1.0 - gr) * ab)  # d g / d ln g_p
-                dq = (m * (gmix + x * dg_dx))[:, None] * dx
-                dq += (m * x)[:, None] * (dg_dlr[:, None] * self.reac_a.T
-                                          + dg_dlp[:, None] * self.prod_a.T) * slope[None, :]
+                a = m * (gmix + x * dg_dx)  # dq/dx
+                core = (self._nu_reac(m * x * dg_dlr) + self._nu_prod(m * x * dg_dlp)) * slope[None, :]
+                core -= self._nu_nu(a)
             else:
                 gmix = 1.0
-                dq = m[:, None] * dx
+                a = m
+                core = -self._nu_nu(a)
+            dq_dT = a * du_T
             if self.mob.kind == "arrhenius":
-                dq += np.outer(x * m * gmix * self.mob.b / T**2, dT)
+                dq_dT = dq_dT + x * m * gmix * self.mob.b / T**2
+            core += np.outer(nu @ (a * self.nu_sum), dlnv) + np.outer(nu @ dq_dT, dT)
         na = n[self.active]
-        flux = self.nu_a @ q
+        flux = nu @ q
         f = V * flux / na
-        J = (V * (self.nu_sp @ dq) + np.outer(flux, V * dlnv)) / na[:, None]
+        J = (V * core + np.outer(flux, V * dlnv)) / na[:, None]
         J[np.diag_indices_from(J)] -= f
         return J
 
