@@ -174,3 +174,34 @@ def expand(config: dict, project_root: str | Path | None = None) -> Grid:
         raise InputError("grid", "two grid points describe the same physical case (same composition, "
                          "temperature, pressure and reactor); remove the duplicate")
     return Grid(mechanism_path=path, mechanism_sha256=sha, cases=tuple(cases), gas=gas)
+
+
+def select_cases(cases, spec) -> list:
+    """The cases that get per-case figures, from the config's ``figures.cases``.
+
+    ``"all"``; a number N (N cases spread evenly over the grid ordered by reactor, pressure,
+    mixture, equivalence ratio and temperature, so the corners are included); or a list of case
+    ids or labels. Raises InputError naming the entry that matches no case.
+    """
+    ordered = sorted(cases, key=lambda c: (c.reactor, c.pressure, c.composition_name, c.equivalence_ratio,
+                                           c.temperature, c.case_id))
+    if spec == "all":
+        return ordered
+    if isinstance(spec, bool) or not isinstance(spec, (int, list)):
+        raise InputError("figures.cases", f"must be 'all', a number of cases or a list of case ids or labels, got {spec!r}")
+    if isinstance(spec, int):
+        if spec < 0:
+            raise InputError("figures.cases", f"must be >= 0, got {spec}")
+        if spec >= len(ordered):
+            return ordered
+        picks = np.unique(np.linspace(0, len(ordered) - 1, spec).round().astype(int)) if spec else []
+        return [ordered[i] for i in picks]
+    by_name = {c.case_id: c for c in ordered} | {c.label: c for c in ordered}
+    chosen = []
+    for i, name in enumerate(spec):
+        if name not in by_name:
+            raise InputError(f"figures.cases[{i}]", f"'{name}' is neither a case id nor a case label of this grid "
+                             "(list them with 'sigmagrid cases CONFIG')")
+        if by_name[name] not in chosen:
+            chosen.append(by_name[name])
+    return chosen

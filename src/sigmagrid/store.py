@@ -7,10 +7,6 @@ how the cases were scheduled.
 
 from __future__ import annotations
 
-import contextlib
-import glob
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -18,6 +14,7 @@ import pandas as pd
 import xarray as xr
 
 from . import missing
+from .atomic import atomic_path, remove_stale_temporaries, write_text_atomic  # noqa: F401 (store.* API)
 
 CONVENTIONS = "CF-1.10"
 
@@ -151,66 +148,6 @@ def write_atomic(ds: xr.Dataset, path: str | Path, compress: bool = True) -> Pat
     with atomic_path(path, ".tmp-nc") as tmp:
         ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
     return path
-
-
-@contextlib.contextmanager
-def atomic_path(path: str | Path, suffix: str = ".tmp"):
-    """Yield a temporary path in ``path``'s folder; on success it becomes ``path`` (rename).
-
-    Readable by the team (mkstemp makes files private). On any error, or a kill, the final name
-    is never half-written: the temporary is removed, or left for :func:`remove_stale_temporaries`.
-    """
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    remove_stale_temporaries(path)
-    fd, tmp = tempfile.mkstemp(prefix=_temp_prefix(path), suffix=suffix, dir=path.parent)
-    os.close(fd)
-    try:
-        yield Path(tmp)
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-
-
-def _temp_prefix(path: Path) -> str:
-    # the writer's pid in the name tells a leftover of a killed run from a write in progress
-    return f".{path.name}.{os.getpid()}."
-
-
-def remove_stale_temporaries(path: str | Path) -> list[Path]:
-    """Delete temporary files of ``path`` left by writers that no longer run (killed, rebooted).
-
-    Returns the files removed. Temporaries of a live process (a concurrent write) are kept.
-    """
-    path = Path(path)
-    removed = []
-    for tmp in path.parent.glob(f".{glob.escape(path.name)}.*.tmp*"):
-        pid_text = tmp.name[len(path.name) + 2:].split(".", 1)[0]
-        if pid_text.isdigit() and _alive(int(pid_text)):
-            continue
-        tmp.unlink(missing_ok=True)
-        removed.append(tmp)
-    return removed
-
-
-def _alive(pid: int) -> bool:
-    if pid == os.getpid():
-        return True
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:  # someone else's live process
-        return True
-    return True
-
-
-def write_text_atomic(text: str, path: str | Path) -> Path:
-    with atomic_path(path) as tmp:
-        tmp.write_text(text)
-    return Path(path)
 
 
 #: Case-file attributes repeated in every row of cases.csv, so the table alone says how it was made.

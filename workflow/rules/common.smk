@@ -7,7 +7,7 @@ import sys
 from sigmagrid import config as sg_config
 from sigmagrid import grid as sg_grid
 from sigmagrid.errors import InputError
-from sigmagrid.store import write_text_atomic
+from sigmagrid.atomic import write_text_atomic
 
 try:
     CONFIG = sg_config.validate(dict(config))

@@ -1,11 +1,11 @@
 # Figures and the Snakemake report: per-case figures for the configured subset of cases, grid
 # figures from the summary (and the ranking and cuts when those rules are in the workflow).
 # `snakemake --report results/report.html` after a run collects every PNG with its caption.
-from sigmagrid import figures as sg_figures
+from sigmagrid.grid import select_cases
 from sigmagrid.safety import CAUTION
 
 try:
-    FIGURE_CASES = sg_figures.select_cases(GRID.cases, CONFIG["figures"]["cases"])
+    FIGURE_CASES = select_cases(GRID.cases, CONFIG["figures"]["cases"])
 except InputError as err:
     sys.stderr.write(f"sigmagrid: error: {err.field}: {err.message}\n")
     sys.exit(2)
