@@ -277,4 +277,8 @@ def format_table(results: dict) -> str:
         mark = "" if key not in met else ("met" if met[key] else "MISSED")
         target_text = f"{target[0]} {target[1]:g} {mark}" if target else ""
         lines.append(f"{key:26} {value:14.4g}  {unit:4}  {target_text:10}  {what}")
+    if results.get("quick"):
+        lines.append("quick mode: one repeat, a 20-case grid and 2 ms of the large case, so fixed costs (job starts, "
+                     "the large mechanism's equilibrium) dominate grid_efficiency and large_ratio; run without "
+                     "--quick for the figures the targets refer to")
     return "\n".join(lines)
