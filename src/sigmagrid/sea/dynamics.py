@@ -50,22 +50,24 @@ class _WeightedProduct:
 
     def __init__(self, A: np.ndarray, B: np.ndarray):
         self.shape = (A.shape[0], B.shape[0])
-        rows, cols, coef, cols_j = [], [], [], []
-        for j in range(A.shape[1]):
-            ia, ib = np.flatnonzero(A[:, j]), np.flatnonzero(B[:, j])
-            if ia.size and ib.size:
-                rows.append(np.repeat(ia, ib.size))
-                cols.append(np.tile(ib, ia.size))
-                coef.append(np.outer(A[ia, j], B[ib, j]).ravel())
-                cols_j.append(np.full(ia.size * ib.size, j))
-        empty = np.zeros(0, int)
-        self.index = (np.concatenate(rows) * self.shape[1] + np.concatenate(cols)) if rows else empty
-        self.coef = np.concatenate(coef) if coef else np.zeros(0)
-        self.j = np.concatenate(cols_j) if cols_j else empty
         self.size = self.shape[0] * self.shape[1]
+        # nonzeros of each, ordered by column
+        ja, ia = np.nonzero(A.T)
+        jb, ib = np.nonzero(B.T)
+        per_col_b = np.bincount(jb, minlength=A.shape[1])
+        first_b = np.cumsum(per_col_b) - per_col_b
+        # every nonzero of A pairs with the nonzeros of B in its column
+        repeat = per_col_b[ja]
+        a_k = np.repeat(np.arange(ja.size), repeat)
+        within = np.arange(repeat.sum()) - np.repeat(np.cumsum(repeat) - repeat, repeat)
+        b_k = first_b[ja[a_k]] + within
+        self.j = ja[a_k]
+        self.index = ia[a_k] * self.shape[1] + ib[b_k]
+        self.coef = A[ia[a_k], self.j] * B[ib[b_k], self.j]
 
     def __call__(self, w: np.ndarray) -> np.ndarray:
-        return np.bincount(self.index, weights=self.coef * w[self.j], minlength=self.size).reshape(self.shape)
+        out = np.bincount(self.index, weights=self.coef * w[self.j], minlength=self.size)
+        return out.astype(float, copy=False).reshape(self.shape)  # float also when there is no pair
 
 
 class _OffConstraint(RuntimeError):
