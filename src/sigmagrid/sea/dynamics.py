@@ -16,6 +16,7 @@ import cantera as ct
 import numpy as np
 from scipy import sparse
 from scipy.integrate import BDF
+from scipy.linalg import lapack
 
 from ..units import GAS_CONSTANT, KMOL, PER_KMOL
 
@@ -371,9 +372,9 @@ class _Projector:
             res = E @ na - tgt
             if np.all(np.abs(res) <= 4e-16 * np.abs(tgt)):
                 break
-            try:
-                lam = np.linalg.solve((E * na) @ E.T, -res)
-            except np.linalg.LinAlgError:  # dependent element rows
+            # a direct LAPACK call: numpy's solve costs 10 us of checks on this 5 x 5 system
+            _, _, lam, info = lapack.dgesv((E * na) @ E.T, -res)
+            if info != 0:  # dependent element rows
                 lam = np.linalg.lstsq((E * na) @ E.T, -res, rcond=None)[0]
             na = na * np.exp(E.T @ lam)
         out = n.copy()
@@ -399,6 +400,27 @@ class _Path:
     steps: int
     wall: float
     trace_level: float = float("nan")
+
+
+def _lean_lu(solver: BDF) -> BDF:
+    """BDF's dense LU factorization and solve as direct LAPACK calls (getrf, getrs).
+
+    scipy's ``lu_factor`` and ``lu_solve`` check and convert their arguments on every call: on
+    a 53-species path that was 25 us of each 28 us solve, a sixth of the path's time. The
+    arithmetic is the same LAPACK routines'; a singular matrix gives non-finite corrections,
+    which BDF treats as a failed Newton iteration (a shorter step).
+    """
+    def lu(A):
+        solver.nlu += 1
+        factors, pivots, _ = lapack.dgetrf(A, overwrite_a=True)
+        return factors, pivots
+
+    def solve_lu(LU, b):
+        x, _ = lapack.dgetrs(LU[0], LU[1], b)
+        return x
+
+    solver.lu, solver.solve_lu = lu, solve_lu
+    return solver
 
 
 def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements, settings, t_scale):
@@ -451,7 +473,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
     t_end = settings.time_factor * t_scale
 
     def start(z, offset):
-        return BDF(system.rhs, 0.0, z, t_bound=np.inf, rtol=rtol, atol=atol, jac=system.jac), offset
+        return _lean_lu(BDF(system.rhs, 0.0, z, t_bound=np.inf, rtol=rtol, atol=atol, jac=system.jac)), offset
 
     solver, offset, restarts = None, 0.0, 0
     try:
