@@ -460,7 +460,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
         n = system.amounts(z)
         raw = float(np.max(np.abs(elements @ n - target) / e_scale))
         n = project(n)
-        _, T, _ = system.state(system.z_of(n))
+        T = system._set(n)  # the gas at the projected state, for the potential (no trace factors needed)
         return n, T, raw
 
     status, reason = "ok", ""
