@@ -215,7 +215,7 @@ class _System:
     # dynamics -----------------------------------------------------------------------------
     def _kinetics(self, T):
         g = self.gas
-        x = -g.delta_gibbs[self.rx] * PER_KMOL / (_R * T)
+        x = g.delta_gibbs[self.rx] * (-PER_KMOL / (_R * T))
         # only mass action needs Cantera's rate evaluation; a metric needs the thermodynamics only
         rf = g.forward_rates_of_progress[self.rx] * KMOL if self.mob.kind == "log-mean" else None
         return x, rf
