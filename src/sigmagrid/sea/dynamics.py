@@ -480,7 +480,8 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
         solver, offset = start(z0, 0.0)
         steps = 0
         while True:
-            msg = solver.step()
+            with np.errstate(over="ignore", invalid="ignore"):  # a diverging Newton iterate is rejected by BDF
+                msg = solver.step()
             steps += 1
             if solver.status == "failed":
                 if restarts < _RESTARTS and "spacing between numbers" in str(msg) and solver.t > 0:
