@@ -414,10 +414,9 @@ class _PathRecorder:
     """Collects the full-resolution path step by step and integrates V sigma_j over it.
 
     Per step only Cantera's arrays are copied into preallocated chunk buffers (the state vector
-    T, rho, Y in one call, then the affinities and net rates); entropy production, its integral,
-    and the sign audit are computed in vectorized chunks, so that the per-step cost
-    stays close to that of appending a state to a SolutionArray and memory stays bounded for
-    large mechanisms.
+    T, rho, Y in one call, then the affinities and net rates). Entropy production, its integral
+    and the sign audit are computed in vectorized chunks, so that the per-step cost stays close
+    to that of appending a state to a SolutionArray and memory stays bounded for large mechanisms.
     """
 
     CHUNK = 256
