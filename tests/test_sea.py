@@ -353,7 +353,11 @@ def test_gri30_constant_metrics_reach_equilibrium():
         assert str(one.sea_status.values) == "ok", (metric, str(one.sea_reason.values))
         assert float(one.sea_entropy_decrease) <= 1e-12
     ons = ds.sel(metric="onsager")
-    assert str(ons.sea_status.values) in ("ok", "budget"), str(ons.sea_reason.values)
+    assert str(ons.sea_status.values) in ("ok", "budget", "incomplete"), str(ons.sea_reason.values)
+    if str(ons.sea_status.values) != "ok":
+        # C2 species from the early methyl recombination: their reactions' equilibrium exchange
+        # rates are 1e-15 mol m-3 s-1 and below, so the metric leaves them far from equilibrium
+        assert "held by C2H" in str(ons.sea_reason.values), str(ons.sea_reason.values)
     reached = ds.progress.values[np.isfinite(ons.sea_time.values)]
     assert reached.max() >= 0.99
     assert float(ons.sea_entropy_decrease) <= 1e-4  # integration error of a stiff path at rtol 1e-5
@@ -364,6 +368,22 @@ def test_gri30_constant_metrics_reach_equilibrium():
     for metric in metrics:
         t = ds.sea_time.sel(metric=metric).values
         assert np.all(np.diff(t[np.isfinite(t)]) >= 0)
+
+
+def test_lagging_species_ranks_by_relative_entropy():
+    """The species named for a path that did not finish are those with the largest terms
+    x_k ln(x_k/x_k,eq) of the relative entropy (Kullback-Leibler divergence, Cover and Thomas
+    (2006), Elements of Information Theory, eq. 2.26), worked by hand here."""
+    from sigmagrid.sea.dynamics import lagging_species
+
+    names = ["A", "B", "C"]
+    x_eq = np.array([0.5, 0.5 - 1e-20, 1e-20])
+    x_path = np.array([0.5, 0.4999, 1e-4])  # terms: 0, 0.4999 ln(0.4999/0.5) < 0, 1e-4 ln(1e16) = 3.7e-3
+    nu = np.array([[0.0, -1.0], [-1.0, 0.0], [1.0, 1.0]])  # B -> C (m = 2e-15), A -> C (m = 7e-16)
+    text = lagging_species(x_path, x_eq, names, nu, np.array([2e-15, 7e-16]))
+    assert text.startswith("C (x = 0.0001 against 1e-20 at equilibrium; fastest reaction mobility 2e-15")
+    assert "A (" not in text and "B (" not in text  # no positive term: not named
+    assert lagging_species(np.full(3, np.nan), x_eq, names, nu, np.ones(2)) == ""
 
 
 def test_trace_scaling_is_mass_action_like(h2o2_gas):

@@ -10,7 +10,7 @@ from scipy import sparse
 from ..diagnostics import evaluate
 from ..mechanism import MechanismInfo
 from ..units import KMOL, PER_KMOL
-from .dynamics import _Mobility, _Path, _System, _sea_path
+from .dynamics import _Mobility, _Path, _System, _sea_path, lagging_species
 from .metrics import (alignment, fisher_rao_angle, fit_arrhenius, fit_diagonal, fit_quality, fit_scalar,
                       log_mean_mobility, path_weights, progress_grid)
 from .settings import N_SLOW_COMPARED, PROGRESS_LEVELS, SeaSettings
@@ -251,6 +251,13 @@ def _compare(gas, info, rel, sample_index, settings):
                                 + (f"; {retry.reason}" if retry.reason else ""))
                 path = retry
             path.trace_level = level if metric != "log-mean" else float("nan")
+            reached = np.flatnonzero(np.isfinite(path.time))
+            if path.status in ("incomplete", "budget") and mob.m is not None and reached.size:
+                # name the species the metric cannot bring to equilibrium in the time or steps given
+                held = lagging_species(path.mole_fractions[reached[-1]], eq.mole_fractions, gas.species_names,
+                                       nu[:, reactions], mob.m)
+                if held:
+                    path.reason += f"; the disequilibrium left is held by {held}"
             if notes[metric]:
                 path.reason = "; ".join(notes[metric] + ([path.reason] if path.reason else []))
             paths[metric] = path

@@ -556,6 +556,43 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
                  _time.perf_counter() - started)
 
 
+def lagging_species(x_path, x_eq, names, nu, mobility, top=3) -> str:
+    """Which species hold the disequilibrium left at the end of a path that did not finish.
+
+    Ranks the species by their term x_k ln(x_k / x_k,eq) of the relative entropy of the last
+    reached composition against equilibrium (Kullback-Leibler divergence: the share of the
+    remaining potential that sits in each species, for an ideal gas at fixed T and P), and gives
+    the largest mobility of the reactions that can change each one.
+
+    Parameters
+    ----------
+    x_path, x_eq : (ns,) mole fractions (1) at the last reached progress level and at equilibrium.
+    names : species names.
+    nu : (ns, nr) net stoichiometric coefficients of the reactions in the SEA dynamics.
+    mobility : (nr,) mol m-3 s-1, the metric's (reference) mobility of each.
+
+    Returns
+    -------
+    str, e.g. ``"C2H6 (x = 2.4e-04 against 2.8e-28 at equilibrium; fastest reaction mobility
+    2.2e-15 mol m-3 s-1)"``, or ``""`` if nothing is finite.
+    """
+    x = np.asarray(x_path, float)
+    xe = np.asarray(x_eq, float)
+    if not (np.isfinite(x).all() and np.isfinite(xe).all()):
+        return ""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        term = np.where(x > 0, x * np.log(x / np.maximum(xe, 1e-300)), 0.0)
+    parts = []
+    for k in np.argsort(-term)[:top]:
+        if not term[k] > 0:
+            break
+        touching = np.abs(nu[k]) > 0
+        fastest = float(np.max(mobility[touching])) if touching.any() else 0.0
+        parts.append(f"{names[k]} (x = {x[k]:.2g} against {xe[k]:.2g} at equilibrium; fastest reaction "
+                     f"mobility {fastest:.2g} mol m-3 s-1)")
+    return ", ".join(parts)
+
+
 def _level_time(lam_at, a, b, la, lb, level, tol=1e-10, max_iter=8):
     """Time in [a, b] where the progress reaches ``level`` (Illinois regula falsi on the dense output).
 
