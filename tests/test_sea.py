@@ -451,10 +451,12 @@ def test_duplicate_with_negative_prefactor_and_absent_element():
 
 @pytest.mark.parametrize("reactor", ["isolated", "constant-pressure", "isothermal"])
 @pytest.mark.parametrize("kind", ["constant", "arrhenius"])
-def test_analytic_jacobian_against_finite_differences(h2o2_gas, reactor, kind):
+@pytest.mark.parametrize("route", ["compiled", "cantera"])
+def test_analytic_jacobian_against_finite_differences(h2o2_gas, reactor, kind, route):
     """The SEA Jacobian (``_System.jac``) against central differences of the right-hand side,
     column by column: a calculus identity, on a state with trace species (the trace scaling in
-    play) and reactions on both sides of their partial equilibria."""
+    play) and reactions on both sides of their partial equilibria. Both routes: the compiled
+    kernels (``sea.compiled``) and the numpy and Cantera code they replace where numba is absent."""
     from sigmagrid.sea.dynamics import _Mobility, _System
 
     gas, info = h2o2_gas
@@ -468,6 +470,10 @@ def test_analytic_jacobian_against_finite_differences(h2o2_gas, reactor, kind):
     mass = float(n @ gas.molecular_weights) / 1e3
     volume = mass / gas.density
     system = _System(gas, reactor, mass, n, active, rx, info.reversible, volume, gas.P, 1400.0, mob, 1e-8)
+    if route == "cantera":
+        system._compiled = None
+    elif system._compiled is None:
+        pytest.skip("numba is not importable here")
     z = system.z_of(n)
     J = system.jac(0.0, z)
     fd = np.empty_like(J)
@@ -479,3 +485,50 @@ def test_analytic_jacobian_against_finite_differences(h2o2_gas, reactor, kind):
         fd[:, i] = (system.rhs(0.0, up) - system.rhs(0.0, down)) / (2 * d)
     scale = np.abs(J).max(axis=1, keepdims=True)
     np.testing.assert_allclose(J / scale, fd / scale, atol=1e-6)
+
+
+@pytest.mark.parametrize("reactor", ["isolated", "constant-pressure", "isothermal"])
+@pytest.mark.parametrize("kind", ["constant", "arrhenius"])
+@pytest.mark.parametrize("trace", [1e-8, 0.0])
+def test_compiled_right_hand_side_is_cantera_s(h2o2_gas, reactor, kind, trace):
+    """The compiled right-hand side (``sea.compiled``, NASA7 polynomials in numba) against the same
+    dynamics through Cantera's thermodynamics, the reference library: the constrained temperature
+    to round-off and dz/dt to 1e-9 of its largest component, on states far from and near their
+    partial equilibria, with trace species present."""
+    from sigmagrid.sea import compiled
+    from sigmagrid.sea.dynamics import _Mobility, _System
+
+    if compiled.kernel() is None:
+        pytest.skip("numba is not importable here")
+    gas, info = h2o2_gas
+    rng = np.random.default_rng(5)
+    for composition in ("H2:2, O2:1, N2:3.76, H:1e-11, OH:3e-4, O:1e-5, HO2:2e-6, H2O2:1e-6, H2O:0.3",
+                        "H2:0.01, O2:0.2, N2:3.76, H:1e-7, OH:1e-5, O:1e-6, HO2:1e-8, H2O2:1e-9, H2O:1"):
+        gas.TPX = 1400.0, 2 * ct.one_atm, composition
+        n = 0.04 * gas.X
+        active = np.flatnonzero(np.abs(gas.product_stoich_coeffs - gas.reactant_stoich_coeffs).sum(axis=1) > 0)
+        rx = np.arange(gas.n_reactions)
+        m = 10.0 ** rng.uniform(-2, 2, rx.size)
+        mob = (_Mobility("constant", m) if kind == "constant"
+               else _Mobility("arrhenius", m, rng.uniform(0, 2e4, rx.size), 1500.0))
+        mass = float(n @ gas.molecular_weights) / 1e3
+        system = _System(gas, reactor, mass, n, active, rx, info.reversible, mass / gas.density, gas.P, 1400.0,
+                         mob, trace)
+        assert system._compiled is not None
+        for z in (system.z_of(n), system.z_of(n) + rng.normal(0.0, 0.3, active.size)):
+            fast = system.rhs(0.0, z)
+            t_fast = system.temperature
+            compiled_rates, system._compiled = system._compiled, None
+            slow = system.rhs(0.0, z)
+            system._compiled = compiled_rates
+            assert t_fast == pytest.approx(system.temperature, rel=1e-13)
+            np.testing.assert_allclose(fast, slow, rtol=0, atol=1e-9 * np.abs(slow).max())
+
+
+def test_compiled_path_needs_nasa7():
+    """Thermodynamics other than NASA 7-coefficient polynomials (here NASA9, from a mechanism
+    Cantera ships) keep the Cantera path."""
+    from sigmagrid.sea import compiled
+
+    assert compiled.nasa7_table(ct.Solution("h2o2.yaml")) is not None
+    assert compiled.nasa7_table(ct.Solution("airNASA9.yaml")) is None

@@ -22,6 +22,9 @@ from ..units import GAS_CONSTANT, KMOL, PER_KMOL
 _R = GAS_CONSTANT  # J/(mol K)
 
 
+#: the constant and Arrhenius metrics' right-hand side through :mod:`.compiled` where it can be used
+_USE_COMPILED = True
+
 #: restarts of one SEA path's integration when its clock runs out of resolution (see ``_sea_path``)
 _RESTARTS = 50
 
@@ -130,6 +133,15 @@ class _System:
         self.n_jac = 0
         self._set(n_start, newton=False)
         self.energy0 = self._energy_sum(n_start)  # J, U or H from the species properties
+        self._compiled = None
+        if mobility.kind != "log-mean" and _USE_COMPILED:
+            from . import compiled
+            table = compiled.nasa7_table(gas)
+            if table is not None and compiled.kernel() is not None:
+                self._compiled = compiled.CompiledRates(
+                    gas, reactor, self.n_full, active, self.n_ref, reactions, self.nu_rx, self._side_rows,
+                    self._side_cols, volume, pressure, self.energy0, self.eps, mobility.kind, mobility.m,
+                    mobility.b, mobility.t_ref, table)
 
     # state --------------------------------------------------------------------------------
     def amounts(self, z: np.ndarray) -> np.ndarray:
@@ -260,6 +272,14 @@ class _System:
 
     def rhs(self, t, z):
         self.n_rhs += 1
+        if self._compiled is not None:
+            if not z.max() < 50.0:  # as in amounts(): a trial state far off
+                return np.full(z.size, np.nan)
+            out, T = self._compiled(z, self.temperature, self.eps)
+            if not T > 0:
+                return np.full(z.size, np.nan)  # no temperature meets the constraint: a shorter step
+            self.temperature = T
+            return out
         try:
             n, T, V = self.state(z)
         except (_OffConstraint, ct.CanteraError):
@@ -294,6 +314,13 @@ class _System:
         log-mean Jacobian (it only steers Newton's iteration, not the solution).
         """
         self.n_jac += 1
+        if self._compiled is not None:
+            if not z.max() < 50.0:
+                raise _OffConstraint("amounts out of range")
+            J, T = self._compiled.jacobian(z, self.temperature, self.eps)
+            if T > 0:
+                self.temperature = T
+                return J
         n, T, V = self.state(z)
         g = self.gas
         x, rf = self._kinetics(T)
@@ -458,12 +485,22 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
 
     project = _Projector(elements, target, system.active, n0)
 
+    compiled = system._compiled
+    E_active = np.ascontiguousarray(project.E, float)
+
     def project_state(z):
+        """Projected amounts (mol), T (K), drift before projection (1), potential (J/K), held energy (J)."""
         n = system.amounts(z)
         raw = float(np.max(np.abs(elements @ n - target) / e_scale))
+        if compiled is not None:
+            settled = compiled.settle(n, E_active, project.target, system.temperature)
+            if settled is not None:
+                n, T, phi, energy = settled
+                system.temperature = T
+                return n, T, raw, phi, energy
         n = project(n)
         T = system._set(n)  # the gas at the projected state, for the potential (no trace factors needed)
-        return n, T, raw
+        return n, T, raw, system.potential(), system.held_energy()
 
     status, reason = "ok", ""
     e_err = raw_err = u_err = 0.0
@@ -495,12 +532,11 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
                 break
             # project the accepted step back onto the element constraints and hand it to the
             # solver (its newest history entry D[0] is the current state), so drift cannot pile up
-            n, T, raw = project_state(solver.y)
+            n, T, raw, phi, energy = project_state(solver.y)
             z_p = system.z_of(n)
             solver.y = z_p
             solver.D[0] = z_p
-            phi = system.potential()
-            u_err = max(u_err, abs(system.held_energy() - u0) / max(abs(u0), 1e-300))
+            u_err = max(u_err, abs(energy - u0) / max(abs(u0), 1e-300))
             raw_err = max(raw_err, raw)
             worst_drop = max(worst_drop, (phi_prev - phi) / drive)
             phi_prev = phi
@@ -530,8 +566,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
         return dens[k][1](t - dens[k][0])
 
     def lam_at(t, k):
-        project_state(z_at(t, k))
-        return lam_of(system.potential())
+        return lam_of(project_state(z_at(t, k))[3])
 
     phi_grid_prev, grid_drop = np.nan, 0.0
     for i, level in enumerate(grid):
@@ -542,13 +577,12 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
             t = 0.0
             n = n0
             system.state(z0)
-            T = system.temperature
+            T, phi, energy = system.temperature, system.potential(), system.held_energy()
         else:
             t = _level_time(lambda s: lam_at(s, k - 1), ts_a[k - 1], ts_a[k], lams[k - 1], lams[k], level)
-            n, T, _ = project_state(z_at(t, k - 1))
+            n, T, _, phi, energy = project_state(z_at(t, k - 1))
         e_err = max(e_err, float(np.max(np.abs(elements @ n - target) / e_scale)))
-        u_err = max(u_err, abs(system.held_energy() - u0) / max(abs(u0), 1e-300))
-        phi = system.potential()
+        u_err = max(u_err, abs(energy - u0) / max(abs(u0), 1e-300))
         if system.reactor == "isothermal":
             u_err = np.nan  # nothing energetic is held fixed at (T, P)
         if i > 0 and np.isfinite(phi_grid_prev):
