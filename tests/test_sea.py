@@ -525,6 +525,16 @@ def test_compiled_right_hand_side_is_cantera_s(h2o2_gas, reactor, kind, trace):
             np.testing.assert_allclose(fast, slow, rtol=0, atol=1e-9 * np.abs(slow).max())
 
 
+def test_compiled_kernels_use_the_package_gas_constant():
+    """numba caches the kernels' globals and sees changes of their own file only: their gas
+    constant must be the package's (and Cantera's, CODATA 2018 exact N_A k)."""
+    pytest.importorskip("numba")
+    from sigmagrid.sea import _kernels
+    from sigmagrid.units import GAS_CONSTANT
+
+    assert _kernels.R == GAS_CONSTANT == ct.gas_constant / 1e3
+
+
 def test_compiled_path_needs_nasa7():
     """Thermodynamics other than NASA 7-coefficient polynomials (here NASA9, from a mechanism
     Cantera ships) keep the Cantera path."""

@@ -1,14 +1,15 @@
 """numba kernels of :mod:`sigmagrid.sea.compiled` (imported only from there, on first use).
 
-Module-level functions with module-level constants, so that numba can cache them on disk.
+Module-level functions with module-level constants, so that numba can cache them on disk. numba
+freezes globals into its cache and checks only this file for changes, so the gas constant is
+spelled out here rather than imported (``tests/test_sea.py`` checks that it equals
+``units.GAS_CONSTANT``).
 """
 
 import numba
 import numpy as np
 
-from ..units import GAS_CONSTANT
-
-R = GAS_CONSTANT
+R = 6.02214076e23 * 1.380649e-23  # J/(mol K), N_A k (exact), as units.GAS_CONSTANT
 
 
 @numba.njit(cache=True)
