@@ -1,10 +1,11 @@
-"""A compiled right-hand side of the SEA dynamics for the constant and Arrhenius metrics.
+"""The SEA dynamics of the constant and Arrhenius metrics, compiled: right-hand side, Jacobian and
+the per-step projection.
 
 The right-hand side dz/dt = V nu q / N (z = ln N) of a fitted or onsager path needs only the
 thermodynamics: the constrained temperature, the species' chemical potentials and the affinities.
 Through Cantera and numpy that was about 30 calls of 1-2 us each, and 40 % of a path's time,
-called about four times a step. Here it is one function compiled with numba, on the NASA
-7-coefficient polynomials Cantera itself evaluates (McBride, Gordon and Reno (1993), NASA TM-4513,
+called about four times a step. Here each piece is one function compiled with numba
+(:mod:`._kernels`), on the NASA 7-coefficient polynomials Cantera itself evaluates (McBride, Gordon and Reno (1993), NASA TM-4513,
 eqs. 1-3), with Cantera's conventions (mole fractions clipped at 1e-300 in the logarithm, the
 polynomial's low range up to and including T_mid). ``tests/test_sea.py`` checks it against the
 Cantera path to round-off.
@@ -22,8 +23,6 @@ transport properties of individual species, NASA TM-4513.
 from __future__ import annotations
 
 import numpy as np
-
-from ..units import GAS_CONSTANT
 
 REACTOR_CODES = {"isolated": 0, "constant-pressure": 1, "isothermal": 2}
 _kernel = None
@@ -47,8 +46,8 @@ def nasa7_table(gas) -> np.ndarray | None:
 
 
 def kernel():
-    """The compiled right-hand side, or None if numba cannot be imported (compiled once per process;
-    cached on disk by numba where it can write)."""
+    """The compiled kernels (module :mod:`._kernels`), or None if numba cannot be imported or
+    compile here. Compiled once per process, or loaded from numba's disk cache where it can write."""
     global _kernel
     if _kernel is None:
         try:
@@ -78,12 +77,11 @@ def _compile():
 
 
 class CompiledRates:
-    """The arguments of the compiled right-hand side for one SEA system, prepared once."""
+    """The compiled kernels bound to one SEA system: its arguments prepared once."""
 
     def __init__(self, gas, reactor, n_full, active, n_ref, reactions, nu_rx, side_rows, side_cols,
                  volume, pressure, energy0, eps, kind, m, b, t_ref, table):
         self.kernels = kernel()
-        self.fn = self.kernels.rhs if self.kernels is not None else None
         nu = np.asarray(nu_rx, float)  # (ns, nr)
         cols, rows = np.nonzero(nu.T)  # by reaction
         self.args_fixed = dict(
@@ -106,10 +104,6 @@ class CompiledRates:
         self._tail = (a["energy0"], a["nu_ptr"], a["nu_species"], a["nu_coef"], a["side_rows"], a["side_cols"],
                       a["nr"], a["eps"], a["kind"], a["m"], a["b"], a["t_ref"])
 
-    @property
-    def available(self) -> bool:
-        return self.fn is not None
-
     def settle(self, n, E, target, T_guess):
         """Amounts n (mol, full) projected onto the element constraints E n[active] = target, with
         (T K, potential J/K, held energy J) there; None where the compiled path cannot do it."""
@@ -125,13 +119,16 @@ class CompiledRates:
     def jacobian(self, z, T_guess, eps):
         """(d(dz/dt)/dz, T); T < 0 where the energy constraint has no solution."""
         J = np.empty((z.size, z.size))
-        tail = self._tail if eps == self._tail[7] else self._tail[:7] + (float(eps),) + self._tail[8:]
-        T = self.kernels.jacobian(z, *self._head, float(T_guess), *tail, self._active_pos, self._nu_sum, J)
+        T = self.kernels.jacobian(z, *self._head, float(T_guess), *self._tail_at(eps), self._active_pos,
+                                  self._nu_sum, J)
         return J, T
 
     def __call__(self, z, T_guess, eps):
         """(dz/dt, T); T < 0 where the energy constraint has no solution."""
         out = np.empty(z.size)
-        tail = self._tail if eps == self._tail[7] else self._tail[:7] + (float(eps),) + self._tail[8:]
-        T = self.fn(z, *self._head, float(T_guess), *tail, out)
+        T = self.kernels.rhs(z, *self._head, float(T_guess), *self._tail_at(eps), out)
         return out, T
+
+    def _tail_at(self, eps):
+        """The trailing arguments with the trace level eps (mol): a retried path raises it."""
+        return self._tail if eps == self._tail[7] else self._tail[:7] + (float(eps),) + self._tail[8:]

@@ -22,7 +22,8 @@ from ..units import GAS_CONSTANT, KMOL, PER_KMOL
 _R = GAS_CONSTANT  # J/(mol K)
 
 
-#: the constant and Arrhenius metrics' right-hand side through :mod:`.compiled` where it can be used
+#: the constant and Arrhenius metrics' right-hand side, Jacobian and projection through :mod:`.compiled`
+#: where it can be used (False: always the Cantera route, e.g. to time it)
 _USE_COMPILED = True
 
 #: restarts of one SEA path's integration when its clock runs out of resolution (see ``_sea_path``)
@@ -264,8 +265,8 @@ class _System:
         if not self.eps > 0:
             return
         ratio = self.eps / n[self.active]
-        # both sides in one product, summed over the few species of each (a dense 2 nr x na
-        # product cost 10 us a call on gri30)
+        # both sides in one product, summed over the few species of each side (a dense
+        # (2 nr x na) product multiplied mostly zeros)
         logs = np.bincount(self._side_rows, weights=np.log1p(ratio)[self._side_cols], minlength=2 * self._nr_in)
         g = np.exp(-logs)
         self._g_reac, self._g_prod = g[:self._nr_in], g[self._nr_in:]
