@@ -1,5 +1,7 @@
 """The cost estimate runs real sample cases and scales them; the benchmark's table is well formed."""
 
+import pytest
+
 from sigmagrid import config as config_mod, cost, grid as grid_mod
 from conftest import REPO, run_cli
 
@@ -24,6 +26,17 @@ def test_estimate_scales_measured_cases():
     assert result.cpu_seconds >= 24 * min(result.seconds_per_case)
     assert result.wall_seconds == result.cpu_seconds / 2
     assert 1e4 < result.bytes_per_case < 5e6
+    # the demo runs SEA with fitted metrics: each of its 4 jobs loads the compiled kernels once
+    n_jobs = -(-24 // result.cases_per_job)
+    assert result.cpu_seconds == pytest.approx(sum(result.seconds_per_case) / 2 * 24 + n_jobs * (
+        cost.JOB_START_SECONDS + result.kernel_load_seconds))
+
+
+def test_estimate_without_sea_loads_no_kernels():
+    config = config_mod.load(REPO / "config" / "config.yaml")
+    config["sea"] = {"enabled": False}
+    result = cost.estimate(config, n_sample=1, cores=2)
+    assert result.kernel_load_seconds == 0.0
 
 
 def test_estimate_command_refuses_bad_sample():

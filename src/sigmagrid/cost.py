@@ -31,11 +31,13 @@ class Estimate:
     bytes_per_case: float
     cores: int
     cases_per_job: int
+    kernel_load_seconds: float = 0.0  # s per job: the compiled SEA kernels (numba), if SEA needs them
 
     @property
     def cpu_seconds(self) -> float:
         n_jobs = -(-self.n_cases // self.cases_per_job)
-        return statistics.mean(self.seconds_per_case) * self.n_cases + n_jobs * JOB_START_SECONDS
+        return (statistics.mean(self.seconds_per_case) * self.n_cases
+                + n_jobs * (JOB_START_SECONDS + self.kernel_load_seconds))
 
     @property
     def wall_seconds(self) -> float:
@@ -74,6 +76,13 @@ def estimate(config: dict, n_sample: int = 4, cores: int = 2, report=lambda s: N
     settings = runner.RunSettings.from_config(config)
     meta = runner.provenance(path, grid.mechanism_sha256, config_mod.config_hash(config))
     sample = sample_cases(list(grid.cases), n_sample)
+    kernel_seconds = 0.0
+    if settings.sea is not None and any(m != "log-mean" for m in settings.sea.metrics):
+        # every job loads the compiled SEA kernels once: time it here, outside the sampled cases
+        from .sea import compiled
+        started = time.perf_counter()
+        compiled.kernel()
+        kernel_seconds = time.perf_counter() - started
     seconds, sizes = [], []
     with tempfile.TemporaryDirectory() as tmp:
         for k, case in enumerate(sample, 1):
@@ -86,7 +95,7 @@ def estimate(config: dict, n_sample: int = 4, cores: int = 2, report=lambda s: N
     return Estimate(n_cases=len(grid.cases), n_species=gas.n_species, n_reactions=gas.n_reactions,
                     sample_labels=tuple(c.label for c in sample), seconds_per_case=tuple(seconds),
                     bytes_per_case=statistics.mean(sizes), cores=cores,
-                    cases_per_job=int(config["batch"]["cases_per_job"]))
+                    cases_per_job=int(config["batch"]["cases_per_job"]), kernel_load_seconds=kernel_seconds)
 
 
 def format_estimate(e: Estimate) -> str:
@@ -94,6 +103,9 @@ def format_estimate(e: Estimate) -> str:
         f"grid: {e.n_cases} cases; mechanism {e.n_species} species, {e.n_reactions} reactions",
         f"sampled {len(e.seconds_per_case)} cases: {min(e.seconds_per_case):.2f} to "
         f"{max(e.seconds_per_case):.2f} s per case (mean {statistics.mean(e.seconds_per_case):.2f} s)",
+        f"per job: {JOB_START_SECONDS:.1f} s start-up"
+        + (f" + {e.kernel_load_seconds:.1f} s to load the compiled SEA kernels" if e.kernel_load_seconds else "")
+        + f", {e.cases_per_job} cases per job",
         f"estimated CPU time   {e.cpu_seconds / 60:10.1f} min",
         f"estimated wall time  {e.wall_seconds / 60:10.1f} min on {e.cores} cores",
         f"estimated disk       {e.disk_bytes / 1e9:10.3f} GB ({e.bytes_per_case / 1e6:.2f} MB per case)",
