@@ -407,6 +407,44 @@ def test_replaced_bdf_state_keeps_the_earlier_history():
     assert np.abs(s.dense_output()(s.t - s.h_abs) - before(t - h)).max() > 1e-4
 
 
+def test_global_newton_solves_the_step_where_simplified_newton_fails():
+    """The globalized Newton iteration returns a solution of BDF's implicit system.
+
+    Source: the BDF step equation itself (Hairer and Wanner, Solving ODEs II, sec. III.5 and
+    IV.8): y = y_pred + d with d - c f(y) + psi = 0. A stiff, strongly nonlinear toy in ln N,
+    dz/dt = -k (e^z - 1) - slow, from a predictor far from the step's solution: scipy's simplified
+    Newton on the predictor's Jacobian fails there, the full iteration with its line search does
+    not.
+    """
+    from scipy.integrate._ivp import bdf as scipy_bdf
+    from sigmagrid.sea.dynamics import _GlobalNewton
+
+    k = np.array([1e6, 1e3, 1.0])
+
+    class Toy:
+        def rhs(self, t, z):
+            return -k * np.expm1(z) - 0.1
+
+        def jac(self, t, z):
+            return np.diag(-k * np.exp(z))
+
+    toy = Toy()
+    y_predict = np.array([3.0, -2.0, 0.5])
+    c, psi = 0.5, np.zeros(3)
+    scale = 1e-7 + 1e-5 * np.abs(y_predict)
+    tol = 3e-3
+    lu = scipy_bdf.lu_factor(np.eye(3) - c * toy.jac(0.0, y_predict))
+    plain = scipy_bdf.solve_bdf_system(toy.rhs, 0.0, y_predict, c, psi, lu, scipy_bdf.lu_solve, scale, tol)
+    assert not plain[0]  # the case the rescue is for
+    result = _GlobalNewton(toy)._iterate(0.0, y_predict, c, psi, scale, tol)
+    assert result is not None
+    y, d, n_iter = result
+    np.testing.assert_allclose(y, y_predict + d, rtol=0, atol=1e-14)
+    residual = d - c * toy.rhs(0.0, y) + psi
+    assert np.sqrt(np.mean((residual / scale) ** 2)) < tol
+    assert 1 <= n_iter <= scipy_bdf.NEWTON_MAXITER
+
+
 def test_lagging_species_ranks_by_relative_entropy():
     """The species named for a path that did not finish are those with the largest terms
     x_k ln(x_k/x_k,eq) of the relative entropy (Kullback-Leibler divergence, Cover and Thomas

@@ -484,11 +484,11 @@ class _GlobalNewton:
     path crept on at h = 1e-5 t). Here, once BDF's iteration has failed with a Jacobian just
     evaluated, a full Newton iteration (Jacobian at every iterate), with steps capped to
     ``max_log_step`` in ln N and a backtracking (Armijo) line search on the scaled residual,
-    tries again. (Trying it again after each halving that follows took 3908 steps instead of
-    5334 on that path, but 30 % more time and a six times larger entropy decrease.) (Dennis and Schnabel (1996), Numerical Methods for Unconstrained Optimization and
-    Nonlinear Equations, SIAM, sec. 6.3). It is installed in scipy's BDF module only while a path
-    is integrated (``with``); with a scipy whose ``solve_bdf_system`` has another signature it
-    stays out and plain BDF runs.
+    tries again (Dennis and Schnabel (1996), Numerical Methods for Unconstrained Optimization and
+    Nonlinear Equations, SIAM, sec. 6.3). Trying it again after each halving that follows took
+    3908 steps instead of 5334 on that path, but 30 % more time and a six times larger entropy
+    decrease. It is installed in scipy's BDF module only while a step runs (``with``); with a
+    scipy whose ``solve_bdf_system`` has another signature it stays out and plain BDF runs.
     """
 
     ARGS = ("fun", "t_new", "y_predict", "c", "psi", "LU", "solve_lu", "scale", "tol")
