@@ -77,3 +77,25 @@ def test_case_file_passes_cf_checks(finished, tmp_path):
     assert names <= {"§3.1 Units", "§4.4 Time Coordinate"}, failures
     for item in failures:
         assert all("time" in msg for msg in item["msgs"]), item
+
+
+def test_summary_read_in_worker_processes_equals_the_serial_read(finished, tmp_path, monkeypatch):
+    """A large grid's summary reads its case files in forked workers (store._summary_parts); the
+    result must be the serial read's, value for value and in case order, also with a damaged file
+    among them (its row: status failed, with the reason)."""
+    from sigmagrid import store
+
+    files = sorted((finished / "results" / "cases").glob("*.nc"))
+    damaged = tmp_path / "0000000000000000.nc"
+    damaged.write_bytes(b"not a netCDF file")
+    paths = [*files, damaged]
+    monkeypatch.setattr(store, "PARALLEL_READ_FROM", 10**9)
+    serial, serial_table = store.summarize(paths)
+    monkeypatch.setattr(store, "PARALLEL_READ_FROM", 1)
+    monkeypatch.setattr(store.os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
+    parallel, parallel_table = store.summarize(paths)
+    xr.testing.assert_identical(serial, parallel)
+    pd.testing.assert_frame_equal(serial_table, parallel_table)
+    row = parallel_table.set_index("case_id").loc[damaged.stem]
+    assert row["status"] == "failed" and "unreadable case file" in row["reason"]
+    assert (parallel_table["status"] == "relaxed").sum() == len(files)

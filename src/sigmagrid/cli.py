@@ -82,7 +82,7 @@ def cmd_batch(args) -> int:
 def cmd_summarize(args) -> int:
     from . import runner
 
-    runner.write_summary(args.files, args.summary, args.table)
+    runner.write_summary(args.files, args.summary, args.table, args.workers)
     print(f"wrote {args.summary} and {args.table} from {len(args.files)} case files")
     return 0
 
@@ -141,6 +141,17 @@ def cmd_bench(args) -> int:
     return 0
 
 
+def _positive_int(text: str) -> int:
+    """An argparse type: an integer >= 1 (the message names the allowed values)."""
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1, not {text!r}")
+    return value
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="sigmagrid", description="Relaxation of reacting mixtures to "
                                      "equilibrium with per-reaction entropy production, over a grid of cases.")
@@ -165,6 +176,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("files", nargs="+")
     p.add_argument("--summary", default="results/summary.nc")
     p.add_argument("--table", default="results/cases.csv")
+    p.add_argument("--workers", type=_positive_int, default=None,
+                   help="processes that read the case files (default: the available cores, at most 4)")
     p.set_defaults(func=cmd_summarize)
 
     p = sub.add_parser("case", help="run one case to one file")

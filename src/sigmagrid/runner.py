@@ -215,9 +215,11 @@ def run_single(config: dict, case: grid_mod.Case, target: str | Path) -> xr.Data
     return run_case_to_file(case, gas, mechanism.describe(gas), RunSettings.from_config(config), meta, target)
 
 
-def write_summary(case_files: list[str | Path], summary_path: str | Path, table_path: str | Path) -> xr.Dataset:
-    """Combine case files into ``summary.nc`` and ``cases.csv`` (both written atomically)."""
-    summary, table = store.summarize(case_files)
+def write_summary(case_files: list[str | Path], summary_path: str | Path, table_path: str | Path,
+                  workers: int | None = None) -> xr.Dataset:
+    """Combine case files into ``summary.nc`` and ``cases.csv`` (both written atomically);
+    ``workers`` processes read the files (default: the available cores, at most 4)."""
+    summary, table = store.summarize(case_files, workers)
     store.write_atomic(summary, summary_path)
     units = {name: u for name, (u, _) in store.SCALARS.items()}
     renamed = table.rename(columns={

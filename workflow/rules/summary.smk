@@ -6,5 +6,8 @@ rule summary:
         table=f"{RESULTS}/cases.csv",
     log:
         f"{RESULTS}/logs/summary.log",
+    # reading the case files is most of the work and runs in parallel (Snakemake caps at --cores)
+    threads: 4
     shell:
-        "{SIGMAGRID} summarize {input.cases} --summary {output.summary} --table {output.table} > {log} 2>&1"
+        "{SIGMAGRID} summarize {input.cases} --summary {output.summary} --table {output.table} "
+        "--workers {threads} > {log} 2>&1"
