@@ -75,9 +75,14 @@ batch: {cases_per_job: 2}
 CFG
 done
 (cd "$WORK/local" && "$PY" -m snakemake results/summary.nc --cores 2 -q)
-(cd "$WORK/slurm" && "$PY" -m snakemake results/summary.nc --profile workflow/profiles/slurm \
+# bounded: a job SLURM can never schedule (say, more CPUs than the node has) pends forever
+if ! (cd "$WORK/slurm" && timeout 900 "$PY" -m snakemake results/summary.nc --profile workflow/profiles/slurm \
     --slurm-no-account --slurm-status-command squeue --slurm-init-seconds-before-status-checks 1 \
-    --default-resources slurm_partition=check runtime=10 mem_mb=1000 -q)
+    --default-resources slurm_partition=check runtime=10 mem_mb=1000 -q); then
+    echo "slurm check: the SLURM run failed or did not finish in 900 s; the queue:" >&2
+    squeue >&2 || true
+    exit 1
+fi
 "$PY" - "$WORK/local/results" "$WORK/slurm/results" <<'PYCHECK'
 import sys
 from pathlib import Path

@@ -6,8 +6,8 @@ rule summary:
         table=f"{RESULTS}/cases.csv",
     log:
         f"{RESULTS}/logs/summary.log",
-    # reading the case files is most of the work and runs in parallel (Snakemake caps at --cores)
-    threads: 4
+    # no threads directive: the summary reads its files in as many processes as the cores it may
+    # use (at most 4); asking Snakemake for 4 threads made the SLURM executor request 4 CPUs,
+    # which a 2-CPU partition never grants
     shell:
-        "{SIGMAGRID} summarize {input.cases} --summary {output.summary} --table {output.table} "
-        "--workers {threads} > {log} 2>&1"
+        "{SIGMAGRID} summarize {input.cases} --summary {output.summary} --table {output.table} > {log} 2>&1"
