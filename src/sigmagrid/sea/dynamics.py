@@ -486,7 +486,7 @@ class _GlobalNewton:
     ``max_log_step`` in ln N and a backtracking (Armijo) line search on the scaled residual,
     tries again (Dennis and Schnabel (1996), Numerical Methods for Unconstrained Optimization and
     Nonlinear Equations, SIAM, sec. 6.3). Trying it again after each halving that follows took
-    3908 steps instead of 5334 on that path, but 30 % more time and a six times larger entropy
+    3908 steps instead of 5334 on that path, but 30 % more time and a thirty times larger entropy
     decrease. It is installed in scipy's BDF module only while a step runs (``with``); with a
     scipy whose ``solve_bdf_system`` has another signature it stays out and plain BDF runs.
     """
