@@ -410,9 +410,10 @@ def test_replaced_bdf_state_keeps_the_earlier_history():
 def test_global_newton_solves_the_step_where_simplified_newton_fails():
     """The globalized Newton iteration returns a solution of BDF's implicit system.
 
-    Source: the BDF step equation itself (Hairer and Wanner, Solving ODEs II, sec. III.5 and
-    IV.8): y = y_pred + d with d - c f(y) + psi = 0. A stiff, strongly nonlinear toy in ln N,
-    dz/dt = -k (e^z - 1) - slow, from a predictor far from the step's solution: scipy's simplified
+    Source: the BDF step equation itself (Hairer and Wanner, Solving Ordinary Differential
+    Equations II, ch. V; chapter from memory), in scipy's form y = y_pred + d with
+    d - c f(y) + psi = 0. A stiff, strongly nonlinear toy in ln N, dz/dt = -k (e^z - 1) - 0.1,
+    from a predictor far from the step's solution: scipy's simplified
     Newton on the predictor's Jacobian fails there, the full iteration with its line search does
     not.
     """
