@@ -481,14 +481,13 @@ def _replace_state(solver: BDF, y: np.ndarray) -> None:
 
 def _solver_state(solver: BDF) -> tuple:
     """What BDF's step changes, to take the step again (see :func:`_restore_halved`)."""
-    return (solver.t, solver.t_old, solver.y, solver.D.copy(), solver.h_abs, solver.order, solver.n_equal_steps,
-            solver.J, solver.LU)
+    return solver.t, solver.t_old, solver.y, solver.D.copy(), solver.h_abs, solver.order, solver.J
 
 
 def _restore_halved(solver: BDF, state: tuple) -> None:
     """BDF back at ``state`` (from :func:`_solver_state`) with half its next step, as after its own
     failed Newton iteration (its ``change_D`` rescales the history to the new step)."""
-    solver.t, solver.t_old, solver.y, D, solver.h_abs, solver.order, _, solver.J, _ = state
+    solver.t, solver.t_old, solver.y, D, solver.h_abs, solver.order, solver.J = state
     solver.D[:] = D
     _bdf.change_D(solver.D, solver.order, 0.5)
     solver.h_abs *= 0.5
