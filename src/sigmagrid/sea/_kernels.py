@@ -331,3 +331,528 @@ def jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
             J[i, k] = V * (J[i, k] + col_v[i] * dlnv[k] + col_t[i] * dT[k] + flux[i] * dlnv[k]) / n_i
         J[i, i] -= V * flux[i] / n_i
     return T
+
+
+# ----------------------------------------------------------------------------------------------
+# The whole SEA path of a constant or Arrhenius metric, compiled: scipy's BDF (variable order, NDF
+# formulas, quasi-constant step) with the changes of ``dynamics._sea_path`` (the globalized
+# Newton iteration, a fresh Jacobian per accepted step, the projection onto the element totals
+# with the history shifted, the halving of steps that lower the entropy). Through scipy each step
+# cost about 0.25 ms of Python on top of the kernels above; here the kernels are what is left.
+# Kept in this file, not a module of its own: numba checks only the file of a cached function
+# for changes, so a caller in another file would keep a stale copy of these kernels.
+
+MAX_ORDER = 5
+NEWTON_MAXITER = 4
+MIN_FACTOR = 0.2
+MAX_FACTOR = 10.0
+
+# returned codes of ``bdf_path``
+STEP_CHUNK = 0  # the chunk of steps is done: Python checks the wall budget and calls again
+STEP_DONE = 1  # the progress reached its stop level
+STEP_TIME = 2  # the time limit was passed
+STEP_BUDGET = 3  # the step budget is used
+STEP_TOO_SMALL = 4  # the step fell below the resolution of the clock (Python restarts the clock)
+STEP_FAILED = 5  # a step's state could not be projected onto the element totals (or left the range)
+
+# indices into the integer and float state arrays of ``bdf_path``
+I_ORDER, I_EQUAL, I_HARD, I_LU, I_NJEV, I_SEEN, I_RETRIES, I_RHS, I_JAC, I_STEPS, I_HAVE_LAST = range(11)
+F_T, F_TOLD, F_H, F_TGUESS, F_PHI, F_UERR, F_RAW, F_DROP = range(8)
+
+
+@numba.njit(cache=True)
+def _rhs(z, H, L, fs, out):
+    """rhs() with the kernel arguments packed: H the head, L the tail of ``CompiledRates``; the
+    temperature guess in fs[F_TGUESS] is updated. False where the state has no value."""
+    if not z.max() < 50.0:  # as dynamics._System.amounts: a trial state far off
+        return False
+    T = rhs(z, H[0], H[1], H[2], H[3], H[4], H[5], H[6], H[7], fs[F_TGUESS], L[0], L[1], L[2], L[3], L[4],
+            L[5], L[6], L[7], L[8], L[9], L[10], L[11], out)
+    if not T > 0:
+        return False
+    fs[F_TGUESS] = T
+    for i in range(out.size):
+        if not np.isfinite(out[i]):
+            return False
+    return True
+
+
+@numba.njit(cache=True)
+def _jac(z, H, L, active_pos, nu_sum, fs, J):
+    if not z.max() < 50.0:
+        return False
+    T = jacobian(z, H[0], H[1], H[2], H[3], H[4], H[5], H[6], H[7], fs[F_TGUESS], L[0], L[1], L[2], L[3], L[4],
+                 L[5], L[6], L[7], L[8], L[9], L[10], L[11], active_pos, nu_sum, J)
+    if not T > 0:
+        return False
+    fs[F_TGUESS] = T
+    return True
+
+
+@numba.njit(cache=True)
+def lu_factor(A, piv):
+    """LU factorization with partial pivoting of A in place (LAPACK getrf's layout: unit lower
+    triangle below the diagonal, rows swapped whole). False if a pivot is zero or not finite."""
+    n = A.shape[0]
+    for c in range(n):
+        p = c
+        big = abs(A[c, c])
+        for r in range(c + 1, n):
+            v = abs(A[r, c])
+            if v > big:
+                big = v
+                p = r
+        piv[c] = p
+        if not (big > 0.0 and big < np.inf):
+            return False
+        if p != c:
+            for f in range(n):
+                A[c, f], A[p, f] = A[p, f], A[c, f]
+        inv = 1.0 / A[c, c]
+        for r in range(c + 1, n):
+            w = A[r, c] * inv
+            A[r, c] = w
+            if w != 0.0:
+                for f in range(c + 1, n):
+                    A[r, f] -= w * A[c, f]
+    return True
+
+
+@numba.njit(cache=True)
+def lu_solve(A, piv, b, x):
+    """Solve with the factors of :func:`lu_factor`: x = A^-1 b."""
+    n = b.size
+    for i in range(n):
+        x[i] = b[i]
+    for c in range(n):
+        p = piv[c]
+        if p != c:
+            x[c], x[p] = x[p], x[c]
+    for r in range(n):
+        v = x[r]
+        for c in range(r):
+            v -= A[r, c] * x[c]
+        x[r] = v
+    for r in range(n - 1, -1, -1):
+        v = x[r]
+        for c in range(r + 1, n):
+            v -= A[r, c] * x[c]
+        x[r] = v / A[r, r]
+
+
+@numba.njit(cache=True)
+def _rms(v, scale):
+    s = 0.0
+    for i in range(v.size):
+        w = v[i] / scale[i]
+        s += w * w
+    return np.sqrt(s / v.size)
+
+
+@numba.njit(cache=True)
+def change_D(D, order, factor):
+    """scipy's ``change_D``: the differences array for a step changed by ``factor``."""
+    k = order + 1
+    R = np.zeros((k, k))
+    U = np.zeros((k, k))
+    for which in range(2):
+        f = factor if which == 0 else 1.0
+        M = np.zeros((k, k))
+        for j in range(k):
+            M[0, j] = 1.0
+        for i in range(1, k):
+            for j in range(1, k):
+                M[i, j] = (i - 1 - f * j) / i
+        for j in range(k):  # cumulative product down each column
+            for i in range(1, k):
+                M[i, j] *= M[i - 1, j]
+        if which == 0:
+            R[:, :] = M
+        else:
+            U[:, :] = M
+    RU = R @ U
+    n = D.shape[1]
+    new = np.zeros((k, n))
+    for i in range(k):
+        for j in range(k):
+            w = RU[j, i]
+            if w != 0.0:
+                for c in range(n):
+                    new[i, c] += w * D[j, c]
+    D[:k] = new
+
+
+@numba.njit(cache=True)
+def _simplified_newton(H, L, fs, y_predict, c, psi, LU, piv, scale, tol, y, d, f, dy, work):
+    """scipy's ``solve_bdf_system``: at most NEWTON_MAXITER iterations on one LU. Returns the
+    iteration count, negative if it did not converge; y and d hold the result."""
+    n = y.size
+    for i in range(n):
+        y[i] = y_predict[i]
+        d[i] = 0.0
+    dy_norm_old = -1.0
+    for k in range(NEWTON_MAXITER):
+        if not _rhs(y, H, L, fs, f):
+            return -(k + 1)
+        for i in range(n):
+            work[i] = c * f[i] - psi[i] - d[i]
+        lu_solve(LU, piv, work, dy)
+        dy_norm = _rms(dy, scale)
+        if not np.isfinite(dy_norm):
+            return -(k + 1)
+        rate = -1.0
+        if dy_norm_old >= 0.0:
+            rate = dy_norm / dy_norm_old
+            if rate >= 1.0 or rate ** (NEWTON_MAXITER - k) / (1.0 - rate) * dy_norm > tol:
+                return -(k + 1)
+        for i in range(n):
+            y[i] += dy[i]
+            d[i] += dy[i]
+        if dy_norm == 0.0 or (rate >= 0.0 and rate / (1.0 - rate) * dy_norm < tol):
+            return k + 1
+        dy_norm_old = dy_norm
+    return -NEWTON_MAXITER
+
+
+@numba.njit(cache=True)
+def _full_newton(H, L, active_pos, nu_sum, fs, istate, y_predict, c, psi, scale, tol, max_iter, max_log_step,
+                 y, d, last_J, A, piv, f, r, dy, y_try, d_try, f_try):
+    """``dynamics._GlobalNewton._iterate``: full Newton iterations with steps capped to
+    max_log_step in ln N and an Armijo line search on the scaled residual. Returns the iteration
+    count reported to BDF, or -1; last_J holds the Jacobian of its last iteration, and
+    istate[I_HAVE_LAST] says whether it computed one (as ``_GlobalNewton.last_jac``)."""
+    n = y.size
+    istate[I_HAVE_LAST] = 0
+    for i in range(n):
+        y[i] = y_predict[i]
+        d[i] = 0.0
+    if not _rhs(y, H, L, fs, f):
+        return -1
+    for i in range(n):
+        r[i] = c * f[i] - psi[i] - d[i]
+    rn = _rms(r, scale)
+    for k in range(max_iter):
+        if not _jac(y, H, L, active_pos, nu_sum, fs, last_J):
+            return -1
+        istate[I_JAC] += 1
+        istate[I_HAVE_LAST] = 1
+        for i in range(n):
+            for j in range(n):
+                A[i, j] = -c * last_J[i, j]
+            A[i, i] += 1.0
+        if not lu_factor(A, piv):
+            return -1
+        lu_solve(A, piv, r, dy)
+        big = 0.0
+        for i in range(n):
+            v = abs(dy[i])
+            if not np.isfinite(v):
+                return -1
+            if v > big:
+                big = v
+        alpha = min(1.0, max_log_step / big) if big > 0 else 1.0
+        while True:
+            for i in range(n):
+                y_try[i] = y[i] + alpha * dy[i]
+            ok = _rhs(y_try, H, L, fs, f_try)
+            istate[I_RHS] += 1
+            if ok:
+                for i in range(n):
+                    d_try[i] = d[i] + alpha * dy[i]
+                    r[i] = c * f_try[i] - psi[i] - d_try[i]  # r is overwritten only if accepted below
+                rn_try = _rms(r, scale)
+                if rn_try <= (1.0 - 1e-4 * alpha) * rn:
+                    break
+            alpha *= 0.5
+            if alpha < 1e-4:
+                return -1
+        for i in range(n):
+            y[i] = y_try[i]
+            d[i] = d_try[i]
+        rn = rn_try
+        if (alpha == 1.0 and _rms(dy, scale) < 0.1 * tol) or rn < 1e-3 * tol:
+            return min(k + 1, NEWTON_MAXITER)
+    return -1
+
+
+@numba.njit(cache=True)
+def bdf_start(z, H, L, active_pos, nu_sum, rtol, atol, fs, istate, D, J, yv):
+    """A fresh BDF at clock zero from z, as scipy's ``BDF.__init__`` (initial step by
+    ``select_initial_step``: Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4). False where
+    the start state has no right-hand side or Jacobian."""
+    n = z.size
+    f0 = np.empty(n)
+    if not _rhs(z, H, L, fs, f0):
+        return False
+    scale = np.empty(n)
+    for i in range(n):
+        scale[i] = atol + abs(z[i]) * rtol
+    d0 = _rms(z, scale)
+    d1 = _rms(f0, scale)
+    h0 = 1e-6 if (d0 < 1e-5 or d1 < 1e-5) else 0.01 * d0 / d1
+    y1 = z + h0 * f0
+    f1 = np.empty(n)
+    if not _rhs(y1, H, L, fs, f1):
+        return False
+    d2 = _rms(f1 - f0, scale) / h0
+    if d1 <= 1e-15 and d2 <= 1e-15:
+        h1 = max(1e-6, h0 * 1e-3)
+    else:
+        h1 = (0.01 / max(d1, d2)) ** 0.5
+    h_abs = min(100 * h0, h1)
+    if not _jac(z, H, L, active_pos, nu_sum, fs, J):
+        return False
+    D[:, :] = 0.0
+    D[0] = z
+    D[1] = f0 * h_abs
+    yv[:] = z
+    fs[F_T] = 0.0
+    fs[F_TOLD] = np.nan
+    fs[F_H] = h_abs
+    istate[I_ORDER] = 1
+    istate[I_EQUAL] = 0
+    istate[I_LU] = 0
+    istate[I_NJEV] = 1
+    istate[I_SEEN] = -1  # the first solve after a start counts as on a fresh Jacobian
+    istate[I_RHS] += 2
+    istate[I_JAC] += 1
+    return True
+
+
+@numba.njit(cache=True)
+def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale, alpha, gamma, error_const,
+             rtol, atol, newton_tol, lam_start, phi_start, drive, lam_stop, offset, t_end, max_steps, u0,
+             drop_tol, drop_retries, hard_steps, max_iter, max_log_step, global_newton, fresh_jacobian,
+             fs, istate, D, yv, J, LU, piv, rec_t, rec_told, rec_h, rec_order, rec_D, rec_lam):
+    """Steps of one SEA path until a stop (the codes STEP_*), at most rec_t.size accepted steps per
+    call. The state (fs, istate, D, yv, J, LU, piv) carries over between calls; each accepted step
+    is recorded (clock time, its start, BDF's step and order and differences, the progress) for
+    the dense output. ``dynamics._sea_path`` documents the choices; this mirrors it line by line."""
+    n = yv.size
+    active = H[1]
+    n_full = H[0]
+    n_ref = H[2]
+    coef, p_ref, reactor, volume, pressure, energy0 = H[3], H[4], H[5], H[6], H[7], L[0]
+    y_predict = np.empty(n)
+    scale = np.empty(n)
+    psi = np.empty(n)
+    y_new = np.empty(n)
+    d = np.empty(n)
+    f = np.empty(n)
+    dy = np.empty(n)
+    work = np.empty(n)
+    y_try = np.empty(n)
+    d_try = np.empty(n)
+    f_try = np.empty(n)
+    last_J = np.empty((n, n))
+    A = np.empty((n, n))
+    piv2 = np.empty(n, np.int64)
+    b_D = np.empty_like(D)
+    b_y = np.empty(n)
+    b_J = np.empty((n, n))
+    props = np.empty(3)
+    nf = n_full.size
+    amounts = np.empty(nf)
+    nrec = 0
+    while nrec < rec_t.size:
+        # what the step changes, to take it again at half the size (dynamics._solver_state)
+        b_t, b_told, b_h, b_order = fs[F_T], fs[F_TOLD], fs[F_H], istate[I_ORDER]
+        b_D[:, :] = D
+        b_y[:] = yv
+        b_J[:, :] = J
+        istate[I_HAVE_LAST] = 0
+        # ---- scipy's BDF._step_impl, with dynamics._GlobalNewton._solve as its Newton solver
+        t = fs[F_T]
+        order = istate[I_ORDER]
+        min_step = 10.0 * abs(np.nextafter(t, np.inf) - t)
+        h_abs = fs[F_H]
+        if h_abs < min_step:
+            change_D(D, order, min_step / h_abs)
+            h_abs = min_step
+            istate[I_EQUAL] = 0
+        current_jac = False
+        accepted = False
+        n_iter = 0
+        t_new = t
+        while not accepted:
+            if h_abs < min_step:
+                istate[I_STEPS] += 1
+                return STEP_TOO_SMALL, nrec
+            t_new = t + h_abs
+            h = t_new - t
+            h_abs = abs(h)
+            for i in range(n):
+                s = 0.0
+                for j in range(order + 1):
+                    s += D[j, i]
+                y_predict[i] = s
+                scale[i] = atol + rtol * abs(s)
+                p = 0.0
+                for j in range(1, order + 1):
+                    p += D[j, i] * gamma[j]
+                psi[i] = p / alpha[order]
+            c = h / alpha[order]
+            converged = False
+            while not converged:
+                if istate[I_LU] == 0:
+                    for i in range(n):
+                        for j in range(n):
+                            LU[i, j] = -c * J[i, j]
+                        LU[i, i] += 1.0
+                    istate[I_LU] = 1 if lu_factor(LU, piv) else -1
+                fresh = istate[I_NJEV] != istate[I_SEEN]
+                istate[I_SEEN] = istate[I_NJEV]
+                done = False
+                if global_newton and istate[I_HARD] > 0 and not fresh:  # a hard stretch: full iteration first
+                    k = _full_newton(H, L, active_pos, nu_sum, fs, istate, y_predict, c, psi, scale, newton_tol,
+                                     max_iter, max_log_step, y_new, d, last_J, A, piv2, f, work, dy, y_try,
+                                     d_try, f_try)
+                    if k > 0:
+                        converged, n_iter, done = True, k, True
+                if not done:
+                    k = _simplified_newton(H, L, fs, y_predict, c, psi, LU, piv, scale, newton_tol, y_new, d, f, dy,
+                                           work) if istate[I_LU] == 1 else -1
+                    istate[I_RHS] += abs(k)
+                    if k > 0:
+                        converged, n_iter = True, k
+                    elif fresh and global_newton:
+                        istate[I_HARD] = hard_steps  # failed on a fresh Jacobian: full iterations first for a while
+                        k = _full_newton(H, L, active_pos, nu_sum, fs, istate, y_predict, c, psi, scale,
+                                         newton_tol, max_iter, max_log_step, y_new, d, last_J, A, piv2, f, work,
+                                         dy, y_try, d_try, f_try)
+                        if k > 0:
+                            converged, n_iter = True, k
+                if not converged:
+                    if current_jac:
+                        break
+                    if not _jac(y_predict, H, L, active_pos, nu_sum, fs, J):
+                        break
+                    istate[I_JAC] += 1
+                    istate[I_NJEV] += 1
+                    istate[I_LU] = 0
+                    current_jac = True
+            if not converged:
+                h_abs *= 0.5
+                change_D(D, order, 0.5)
+                istate[I_EQUAL] = 0
+                istate[I_LU] = 0
+                continue
+            safety = 0.9 * (2 * NEWTON_MAXITER + 1) / (2 * NEWTON_MAXITER + n_iter)
+            for i in range(n):
+                scale[i] = atol + rtol * abs(y_new[i])
+                work[i] = error_const[order] * d[i]
+            error_norm = _rms(work, scale)
+            if error_norm > 1.0:
+                factor = max(MIN_FACTOR, safety * error_norm ** (-1.0 / (order + 1)))
+                h_abs *= factor
+                change_D(D, order, factor)
+                istate[I_EQUAL] = 0
+            else:
+                accepted = True
+        istate[I_EQUAL] += 1
+        fs[F_TOLD] = t
+        fs[F_T] = t_new
+        yv[:] = y_new
+        fs[F_H] = h_abs
+        D[order + 2] = d - D[order + 1]
+        D[order + 1] = d
+        for i in range(order, -1, -1):
+            D[i] += D[i + 1]
+        if istate[I_EQUAL] >= order + 1:
+            err_m = np.inf
+            if order > 1:
+                for i in range(n):
+                    work[i] = error_const[order - 1] * D[order, i]
+                err_m = _rms(work, scale)
+            err_p = np.inf
+            if order < MAX_ORDER:
+                for i in range(n):
+                    work[i] = error_const[order + 1] * D[order + 2, i]
+                err_p = _rms(work, scale)
+            best = -1.0
+            delta = 0
+            for which in range(3):
+                e = err_m if which == 0 else (error_norm if which == 1 else err_p)
+                fac = np.inf if e == 0.0 else e ** (-1.0 / (order + which))
+                if fac > best:
+                    best = fac
+                    delta = which - 1
+            order += delta
+            istate[I_ORDER] = order
+            factor = min(MAX_FACTOR, safety * best)
+            fs[F_H] *= factor
+            change_D(D, order, factor)
+            istate[I_EQUAL] = 0
+            istate[I_LU] = 0
+        istate[I_STEPS] += 1
+        # ---- dynamics._sea_path: project onto the element totals, guard the entropy, hand back
+        for k in range(nf):
+            amounts[k] = n_full[k]
+        big = -np.inf
+        for i in range(n):
+            if yv[i] > big:
+                big = yv[i]
+        if not big < 50.0:
+            return STEP_FAILED, nrec
+        for i in range(n):
+            v = n_ref * np.exp(yv[i])
+            amounts[active[i]] = v if v > 1e-300 else 1e-300
+        raw = 0.0
+        for e in range(elements.shape[0]):
+            s = -target_full[e]
+            for k in range(nf):
+                s += elements[e, k] * amounts[k]
+            raw = max(raw, abs(s) / e_scale[e])
+        settled = settle(amounts, active, E, target, coef, p_ref, reactor, volume, pressure, fs[F_TGUESS], energy0,
+                         props) > 0
+        phi = props[1]
+        if settled:
+            fs[F_TGUESS] = props[0]
+        if (not settled or (fs[F_PHI] - phi) / drive > drop_tol) and istate[I_RETRIES] < drop_retries:
+            istate[I_RETRIES] += 1
+            fs[F_T], fs[F_TOLD], fs[F_H] = b_t, b_told, b_h
+            istate[I_ORDER] = b_order
+            D[:, :] = b_D
+            yv[:] = b_y
+            J[:, :] = b_J
+            change_D(D, b_order, 0.5)
+            fs[F_H] *= 0.5
+            istate[I_EQUAL] = 0
+            istate[I_LU] = 0
+            continue
+        if not settled:
+            return STEP_FAILED, nrec
+        istate[I_RETRIES] = 0
+        for i in range(n):
+            zp = np.log(amounts[active[i]] / n_ref)
+            delta_i = zp - yv[i]
+            for j in range(order + 3):
+                D[j, i] += delta_i
+            yv[i] = zp
+        istate[I_HARD] -= 1
+        if istate[I_HAVE_LAST] == 1:
+            J[:, :] = last_J
+            istate[I_LU] = 0
+        elif fresh_jacobian:
+            if _jac(yv, H, L, active_pos, nu_sum, fs, J):
+                istate[I_JAC] += 1
+                istate[I_LU] = 0
+        fs[F_UERR] = max(fs[F_UERR], abs(props[2] - u0) / max(abs(u0), 1e-300))
+        fs[F_RAW] = max(fs[F_RAW], raw)
+        fs[F_DROP] = max(fs[F_DROP], (fs[F_PHI] - phi) / drive)
+        fs[F_PHI] = phi
+        lam = lam_start + (1.0 - lam_start) * (phi - phi_start) / drive
+        rec_t[nrec] = fs[F_T]
+        rec_told[nrec] = fs[F_TOLD]
+        rec_h[nrec] = fs[F_H]
+        rec_order[nrec] = order
+        rec_D[nrec, :order + 1] = D[:order + 1]
+        rec_lam[nrec] = lam
+        nrec += 1
+        if lam >= lam_stop:
+            return STEP_DONE, nrec
+        if offset + fs[F_T] > t_end:
+            return STEP_TIME, nrec
+        if istate[I_STEPS] >= max_steps:
+            return STEP_BUDGET, nrec
+    return STEP_CHUNK, nrec

@@ -83,6 +83,18 @@ def _compile():
                       one_i, np.zeros(1), np.empty((1, 1)))
     _kernels.settle(one_f.copy(), one_i, np.ones((1, 1)), one_f, coef, 101325.0, 2, 0.0, 101325.0, 300.0, 0.0,
                     np.empty(3))
+    # the path loop, with the argument types dynamics._run_compiled gives it (numba compiles per type)
+    head = (one_f.copy(), one_i, 1.0, coef, 101325.0, 2, 0.0, 101325.0)
+    tail = (0.0, np.zeros(2, np.int64), one_i, one_f, one_i, one_i, 1, 0.0, 0, np.zeros(1), np.zeros(1), 1.0)
+    fs, istate = np.zeros(8), np.zeros(11, np.int64)
+    D, y, J, LU, piv = np.zeros((8, 1)), np.zeros(1), np.zeros((1, 1)), np.zeros((1, 1)), np.zeros(1, np.int64)
+    fs[_kernels.F_TGUESS] = 300.0
+    _kernels.bdf_start(np.zeros(1), head, tail, one_i, np.zeros(1), 1e-5, 1e-7, fs, istate, D, J, y)
+    coefficients = np.ones(6)
+    _kernels.bdf_path(head, tail, one_i, np.zeros(1), np.ones((1, 1)), one_f, np.ones((1, 1)), one_f, one_f,
+                      coefficients, coefficients, coefficients, 1e-5, 1e-7, 0.03, 0.0, 0.0, 1.0, 0.0, 0.0, 1.0, 1,
+                      0.0, 1e-5, 8, 10, 10, 1.0, True, True, fs, istate, D, y, J, LU, piv, np.empty(1), np.empty(1),
+                      np.empty(1), np.empty(1, np.int64), np.empty((1, 6, 1)), np.empty(1))
     return _kernels
 
 
@@ -138,6 +150,11 @@ class CompiledRates:
         out = np.empty(z.size)
         T = self.kernels.rhs(z, *self._head, float(T_guess), *self._tail_at(eps), out)
         return out, T
+
+    def path_args(self, eps):
+        """(head, tail, active_pos, nu_sum): the arguments of the compiled path loop
+        (``_kernels.bdf_path``) with the trace level eps (mol)."""
+        return self._head, self._tail_at(eps), self._active_pos, self._nu_sum
 
     def _tail_at(self, eps):
         """The trailing arguments with the trace level eps (mol): a retried path raises it."""

@@ -27,6 +27,10 @@ _R = GAS_CONSTANT  # J/(mol K)
 #: where it can be used (False: always the Cantera route, e.g. to time it)
 _USE_COMPILED = True
 
+#: the constant and Arrhenius metrics' whole path (BDF steps, Newton, projection) in the compiled
+#: loop of ``_kernels.bdf_path`` where their right-hand side is compiled (False: scipy's BDF, e.g. to time it)
+_COMPILED_STEPPER = True
+
 #: the globalized Newton iteration of ``_GlobalNewton`` when BDF's own fails (False: plain BDF)
 _GLOBAL_NEWTON = True
 #: a fresh Jacobian at every accepted step of the constant and Arrhenius metrics (False: BDF's own rule)
@@ -660,6 +664,8 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
     def lam_of(phi):
         return lam_start + (1.0 - lam_start) * (phi - phi_start) / drive
 
+    lam_of.start, lam_of.phi_start = lam_start, phi_start
+
     project = _Projector(elements, target, system.active, n0)
 
     compiled = system._compiled
@@ -679,15 +685,63 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
         T = system._set(n)  # the gas at the projected state, for the potential (no trace factors needed)
         return n, T, raw, system.potential(), system.held_energy()
 
-    status, reason = "ok", ""
-    e_err = raw_err = u_err = 0.0
-    worst_drop = 0.0
     system.state(z0)
     u0 = system.held_energy()
-    phi_prev = system.potential()
-    ts, lams, dens = [0.0], [lam_of(phi_prev)], []  # dens: (clock offset s, dense output)
+    phi_start_path = system.potential()
     t_end = settings.time_factor * t_scale
+    run = _run_compiled if (compiled is not None and _COMPILED_STEPPER) else _run_scipy
+    status, reason, ts, lams, dens, steps, u_err, raw_err, worst_drop = run(
+        system, z0, lam_of, phi_start_path, drive, settings, rtol, atol, t_end, started, project_state, u0,
+        elements, target, e_scale, E_active, project.target)
+    e_err = 0.0
 
+    ts_a, lams_a = np.asarray(ts), np.maximum.accumulate(np.asarray(lams))
+
+    def z_at(t, k):
+        return dens[k][1](t - dens[k][0])
+
+    def lam_at(t, k):
+        return lam_of(project_state(z_at(t, k))[3])
+
+    phi_grid_prev, grid_drop = np.nan, 0.0
+    for i, level in enumerate(grid):
+        if level < lams_a[0] or level > lams_a[-1]:
+            continue
+        k = int(np.searchsorted(lams_a, level))  # step k brackets the level: (ts[k-1], ts[k]]
+        if k == 0:
+            t = 0.0
+            n = n0
+            system.state(z0)
+            T, phi, energy = system.temperature, system.potential(), system.held_energy()
+        else:
+            t = _level_time(lambda s: lam_at(s, k - 1), ts_a[k - 1], ts_a[k], lams[k - 1], lams[k], level)
+            n, T, _, phi, energy = project_state(z_at(t, k - 1))
+        e_err = max(e_err, float(np.max(np.abs(elements @ n - target) / e_scale)))
+        u_err = max(u_err, abs(energy - u0) / max(abs(u0), 1e-300))
+        if system.reactor == "isothermal":
+            u_err = np.nan  # nothing energetic is held fixed at (T, P)
+        if i > 0 and np.isfinite(phi_grid_prev):
+            grid_drop = max(grid_drop, (phi_grid_prev - phi) / drive)
+        phi_grid_prev = phi
+        times[i], temps[i] = t, T
+        xs[i] = n / n.sum()
+    return _Path(status, reason, times, temps, xs, e_err, raw_err, u_err, max(worst_drop, grid_drop, 0.0), steps,
+                 _time.perf_counter() - started)
+
+
+def _run_scipy(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end, started, project_state, u0,
+               elements, target, e_scale, E_active, E_target):
+    """The steps of one SEA path through scipy's BDF with ``_GlobalNewton`` (the log-mean metric, and
+    the others where the compiled route cannot run). Returns (status, reason, clock times s,
+    progress, dense outputs as (clock offset s, interpolant), steps, largest energy error, largest
+    element drift before projection, largest entropy decrease)."""
+    log_mean = system.mob.kind == "log-mean"
+    lam_stop = settings.end_progress
+    status, reason = "ok", ""
+    raw_err = u_err = 0.0
+    worst_drop = 0.0
+    phi_prev = phi_start
+    ts, lams, dens = [0.0], [lam_of(phi_prev)], []  # dens: (clock offset s, dense output)
     newton = _GlobalNewton(system)
 
     def start(z, offset):
@@ -746,55 +800,116 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
             ts.append(offset + solver.t)
             lams.append(lam_of(phi))
             dens.append((offset, solver.dense_output()))
-            if lams[-1] >= lam_stop:
+            status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, t_end, settings)
+            if status is not None:
                 break
-            if ts[-1] > t_end:
-                status, reason = "incomplete", (f"time limit {ts[-1]:.3g} s ({settings.time_factor:g} x the observed "
-                                                f"relaxation) reached at progress {lams[-1]:.6g}: the metric relaxes "
-                                                "far more slowly than the kinetics, or towards a constrained equilibrium")
-                break
-            if steps >= settings.max_steps:
-                status, reason = "budget", f"step budget {settings.max_steps} used at progress {lams[-1]:.6g}"
-                break
-            if _time.perf_counter() - started > settings.max_wall_seconds:
-                status, reason = "budget", f"wall budget {settings.max_wall_seconds:g} s used at progress {lams[-1]:.6g}"
-                break
+        status = status or "ok"
     except Exception as err:  # Cantera or linear-algebra failure: record, do not raise
         status, reason = "failed", f"{type(err).__name__}: {str(err).splitlines()[0][:300] if str(err) else ''}"
         steps = len(ts) - 1
+    return status, reason, ts, lams, dens, steps, u_err, raw_err, worst_drop
 
-    ts_a, lams_a = np.asarray(ts), np.maximum.accumulate(np.asarray(lams))
 
-    def z_at(t, k):
-        return dens[k][1](t - dens[k][0])
+#: accepted steps per call of the compiled loop; between calls Python checks the wall budget
+_CHUNK = 256
 
-    def lam_at(t, k):
-        return lam_of(project_state(z_at(t, k))[3])
 
-    phi_grid_prev, grid_drop = np.nan, 0.0
-    for i, level in enumerate(grid):
-        if level < lams_a[0] or level > lams_a[-1]:
-            continue
-        k = int(np.searchsorted(lams_a, level))  # step k brackets the level: (ts[k-1], ts[k]]
-        if k == 0:
-            t = 0.0
-            n = n0
-            system.state(z0)
-            T, phi, energy = system.temperature, system.potential(), system.held_energy()
+def _run_compiled(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end, started, project_state, u0,
+                  elements, target, e_scale, E_active, E_target):
+    """The steps of one SEA path in the compiled loop (``_kernels.bdf_path``): the same BDF, Newton
+    iterations, projection, entropy guard and clock restarts as :func:`_run_scipy`, without its
+    Python cost per step (about 0.25 ms). Returns what :func:`_run_scipy` returns."""
+    from scipy.integrate._ivp.bdf import BdfDenseOutput
+
+    k = system._compiled.kernels
+    H, L, active_pos, nu_sum = system._compiled.path_args(system.eps)
+    na = z0.size
+    max_order = k.MAX_ORDER
+    kappa = np.array([0, -0.1850, -1 / 9, -0.0823, -0.0415, 0])  # scipy's BDF (NDF) coefficients
+    gamma = np.hstack((0, np.cumsum(1 / np.arange(1, max_order + 1))))
+    alpha = (1 - kappa) * gamma
+    error_const = kappa * gamma + 1 / np.arange(1, max_order + 2)
+    newton_tol = max(10 * np.finfo(float).eps / rtol, min(0.03, rtol ** 0.5))
+    fs = np.zeros(8)
+    fs[k.F_TGUESS] = system.temperature
+    fs[k.F_PHI] = phi_start
+    istate = np.zeros(11, np.int64)
+    D = np.zeros((max_order + 3, na))
+    yv = np.empty(na)
+    J = np.empty((na, na))
+    LU = np.empty((na, na))
+    piv = np.empty(na, np.int64)
+    rec = (np.empty(_CHUNK), np.empty(_CHUNK), np.empty(_CHUNK), np.empty(_CHUNK, np.int64),
+           np.empty((_CHUNK, max_order + 1, na)), np.empty(_CHUNK))
+    elements = np.ascontiguousarray(elements, float)
+    ts, lams, dens = [0.0], [lam_of(phi_start)], []
+    status, reason, offset, restarts = None, "", 0.0, 0
+    lam_stop = settings.end_progress
+    lam_start, phi_ref = lam_of.start, lam_of.phi_start  # the kernel computes the progress as lam_of does
+    if not k.bdf_start(z0, H, L, active_pos, nu_sum, rtol, atol, fs, istate, D, J, yv):
+        return ("failed", "no right-hand side or Jacobian at the SEA start state", ts, lams, dens, 0, 0.0, 0.0, 0.0)
+    while status is None:
+        code, nrec = k.bdf_path(
+            H, L, active_pos, nu_sum, E_active, E_target, elements, target, e_scale, alpha, gamma, error_const,
+            rtol, atol, newton_tol, lam_start, phi_ref, drive, lam_stop, offset, t_end, settings.max_steps, u0,
+            _DROP_TOLERANCE, _DROP_RETRIES, 10, 10, 1.0, _GLOBAL_NEWTON, _FRESH_JACOBIAN,
+            fs, istate, D, yv, J, LU, piv, *rec)
+        for i in range(nrec):
+            order = int(rec[3][i])
+            ts.append(offset + float(rec[0][i]))
+            lams.append(float(rec[5][i]))
+            dens.append((offset, (float(rec[1][i]), float(rec[0][i]), float(rec[2][i]), order,
+                                  rec[4][i, :order + 1].copy())))
+        steps = int(istate[k.I_STEPS])
+        if code == k.STEP_TOO_SMALL:
+            if restarts < _RESTARTS and fs[k.F_T] > 0:
+                restarts += 1
+                offset += float(fs[k.F_T])
+                if k.bdf_start(yv.copy(), H, L, active_pos, nu_sum, rtol, atol, fs, istate, D, J, yv):
+                    continue
+            status, reason = "failed", (f"BDF at t = {offset + fs[k.F_T]:.4g} s, progress {lams[-1]:.6g} "
+                                        f"({restarts} restarts): Required step size is less than spacing between "
+                                        "numbers.")
+        elif code == k.STEP_FAILED:
+            status, reason = "failed", (f"at t = {offset + fs[k.F_T]:.4g} s, progress {lams[-1]:.6g}: a step's "
+                                        "state could not be projected onto the element totals")
+        elif code == k.STEP_CHUNK:
+            status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, np.inf, settings)
+            status = None if status == "ok" else status  # the kernel checks the progress and time itself
         else:
-            t = _level_time(lambda s: lam_at(s, k - 1), ts_a[k - 1], ts_a[k], lams[k - 1], lams[k], level)
-            n, T, _, phi, energy = project_state(z_at(t, k - 1))
-        e_err = max(e_err, float(np.max(np.abs(elements @ n - target) / e_scale)))
-        u_err = max(u_err, abs(energy - u0) / max(abs(u0), 1e-300))
-        if system.reactor == "isothermal":
-            u_err = np.nan  # nothing energetic is held fixed at (T, P)
-        if i > 0 and np.isfinite(phi_grid_prev):
-            grid_drop = max(grid_drop, (phi_grid_prev - phi) / drive)
-        phi_grid_prev = phi
-        times[i], temps[i] = t, T
-        xs[i] = n / n.sum()
-    return _Path(status, reason, times, temps, xs, e_err, raw_err, u_err, max(worst_drop, grid_drop, 0.0), steps,
-                 _time.perf_counter() - started)
+            status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, t_end, settings)
+    system.n_rhs += int(istate[k.I_RHS])
+    system.n_jac += int(istate[k.I_JAC])
+    system.temperature = float(fs[k.F_TGUESS])
+
+    class _Dense(list):
+        """Dense outputs built on first use: (clock offset s, BDF's interpolant over one step)."""
+
+        def __getitem__(self, i):
+            offset_i, args = list.__getitem__(self, i)
+            if isinstance(args, tuple):
+                args = BdfDenseOutput(*args)
+                list.__setitem__(self, i, (offset_i, args))
+            return offset_i, args
+
+    return (status, reason, ts, lams, _Dense(dens), steps, float(fs[k.F_UERR]), float(fs[k.F_RAW]),
+            float(fs[k.F_DROP]))
+
+
+def _stop(lam, t, steps, started, lam_stop, t_end, settings):
+    """(status, reason) where a path stops after an accepted step: ``ok`` at the stop progress,
+    ``incomplete`` at the time limit, ``budget`` for steps or wall time; (None, "") to go on."""
+    if lam >= lam_stop:
+        return "ok", ""
+    if t > t_end:
+        return "incomplete", (f"time limit {t:.3g} s ({settings.time_factor:g} x the observed relaxation) reached at "
+                              f"progress {lam:.6g}: the metric relaxes far more slowly than the kinetics, or towards "
+                              "a constrained equilibrium")
+    if steps >= settings.max_steps:
+        return "budget", f"step budget {settings.max_steps} used at progress {lam:.6g}"
+    if _time.perf_counter() - started > settings.max_wall_seconds:
+        return "budget", f"wall budget {settings.max_wall_seconds:g} s used at progress {lam:.6g}"
+    return None, ""
 
 
 def lagging_species(x_path, x_eq, names, nu, mobility, top=3) -> str:
