@@ -812,6 +812,9 @@ def _run_scipy(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end
 
 #: accepted steps per call of the compiled loop; between calls Python checks the wall budget
 _CHUNK = 256
+#: ``_GlobalNewton``'s defaults, for the compiled loop: accepted steps on which the full iteration
+#: goes first after a failure, its iteration limit, its largest step in ln N
+_HARD_STEPS, _FULL_NEWTON_ITERATIONS, _MAX_LOG_STEP = 10, 10, 1.0
 
 
 def _run_compiled(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end, started, project_state, u0,
@@ -852,7 +855,8 @@ def _run_compiled(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_
         code, nrec = k.bdf_path(
             H, L, active_pos, nu_sum, E_active, E_target, elements, target, e_scale, alpha, gamma, error_const,
             rtol, atol, newton_tol, lam_start, phi_ref, drive, lam_stop, offset, t_end, settings.max_steps, u0,
-            _DROP_TOLERANCE, _DROP_RETRIES, 10, 10, 1.0, _GLOBAL_NEWTON, _FRESH_JACOBIAN,
+            _DROP_TOLERANCE, _DROP_RETRIES, _HARD_STEPS, _FULL_NEWTON_ITERATIONS, _MAX_LOG_STEP, _GLOBAL_NEWTON,
+            _FRESH_JACOBIAN,
             fs, istate, D, yv, J, LU, piv, *rec)
         for i in range(nrec):
             order = int(rec[3][i])
