@@ -821,9 +821,12 @@ def _run_compiled(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_
                   elements, target, e_scale, E_active, E_target):
     """The steps of one SEA path in the compiled loop (``_kernels.bdf_path``): the same BDF, Newton
     iterations, projection, entropy guard and clock restarts as :func:`_run_scipy`, without its
-    Python cost per step (about 0.25 ms). Returns what :func:`_run_scipy` returns."""
-    from scipy.integrate._ivp.bdf import BdfDenseOutput
+    Python cost per step (about 0.25 ms). Returns what :func:`_run_scipy` returns.
 
+    Two differences: the wall budget is checked every ``_CHUNK`` accepted steps, and a state the
+    compiled projection cannot settle (no temperature, a singular element system), after the
+    halvings of the entropy guard, fails the path where the scipy route would try Cantera's.
+    """
     k = system._compiled.kernels
     H, L, active_pos, nu_sum = system._compiled.path_args(system.eps)
     na = z0.size
@@ -877,27 +880,32 @@ def _run_compiled(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_
         elif code == k.STEP_FAILED:
             status, reason = "failed", (f"at t = {offset + fs[k.F_T]:.4g} s, progress {lams[-1]:.6g}: a step's "
                                         "state could not be projected onto the element totals")
-        elif code == k.STEP_CHUNK:
-            status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, np.inf, settings)
-            status = None if status == "ok" else status  # the kernel checks the progress and time itself
+        elif code == k.STEP_CHUNK:  # the kernel checks progress, time and steps itself: the wall budget here
+            if _time.perf_counter() - started > settings.max_wall_seconds:
+                status, reason = "budget", (f"wall budget {settings.max_wall_seconds:g} s used at progress "
+                                            f"{lams[-1]:.6g}")
         else:
             status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, t_end, settings)
     system.n_rhs += int(istate[k.I_RHS])
     system.n_jac += int(istate[k.I_JAC])
     system.temperature = float(fs[k.F_TGUESS])
 
-    class _Dense(list):
-        """Dense outputs built on first use: (clock offset s, BDF's interpolant over one step)."""
-
-        def __getitem__(self, i):
-            offset_i, args = list.__getitem__(self, i)
-            if isinstance(args, tuple):
-                args = BdfDenseOutput(*args)
-                list.__setitem__(self, i, (offset_i, args))
-            return offset_i, args
-
-    return (status, reason, ts, lams, _Dense(dens), steps, float(fs[k.F_UERR]), float(fs[k.F_RAW]),
+    return (status, reason, ts, lams, _LazyDense(dens), steps, float(fs[k.F_UERR]), float(fs[k.F_RAW]),
             float(fs[k.F_DROP]))
+
+
+class _LazyDense(list):
+    """(clock offset s, dense output) of each step, the interpolant built on first use from the
+    recorded (t_old, t, h, order, differences): most steps are never sampled."""
+
+    def __getitem__(self, i):
+        from scipy.integrate._ivp.bdf import BdfDenseOutput
+
+        offset, dense = list.__getitem__(self, i)
+        if isinstance(dense, tuple):
+            dense = BdfDenseOutput(*dense)
+            list.__setitem__(self, i, (offset, dense))
+        return offset, dense
 
 
 def _stop(lam, t, steps, started, lam_stop, t_end, settings):
