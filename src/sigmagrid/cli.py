@@ -23,6 +23,15 @@ from .errors import InputError
 
 EXIT_INPUT = 2
 
+# One BLAS thread per process, unless the user asks otherwise: the matrices here are small (53 x
+# 53, 53 x 325) and grid runs already use every core with processes. With the other core busy,
+# multi-threaded OpenBLAS took 16-46 ms for the near-equilibrium spectra of one metric against 1 ms
+# single-threaded, and 7 ms against 1 ms for a point of the Arrhenius fit's scan (gri30 bench
+# case, 2026-12-03). Snakemake sets the same variables for its jobs; they only take effect before
+# numpy is imported, which the command does lazily.
+for _variable in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_variable, "1")
+
 
 def _load_config(path: str) -> dict:
     from . import config as config_mod
