@@ -541,6 +541,7 @@ def _full_newton(H, L, active_pos, nu_sum, fs, istate, y_predict, c, psi, scale,
     for i in range(n):
         y[i] = y_predict[i]
         d[i] = 0.0
+    istate[I_RHS] += 1
     if not _rhs(y, H, L, fs, f):
         return -1
     for i in range(n):

@@ -247,6 +247,8 @@ def _compare(gas, info, rel, sample_index, settings):
                 system.eps = level * system.n_ref
                 retry = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings, t_scale)
                 retry.wall += path.wall
+                retry.rhs_evaluations += path.rhs_evaluations
+                retry.jacobian_evaluations += path.jacobian_evaluations
                 retry.reason = (f"retried with trace level {level:.0e} after: {path.reason}"
                                 + (f"; {retry.reason}" if retry.reason else ""))
                 path = retry
@@ -365,6 +367,7 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
     angle, dT = full(nmet, ng), full(nmet, ng)
     largest, ratio, ep = full(nmet), full(nmet, levels.size), full(nmet)
     slow, wall, steps, trace = full(nmet), full(nmet), full(nmet), full(nmet)
+    n_rhs, n_jac = full(nmet), full(nmet)
     e_err, e_raw, u_err, s_drop = full(nmet), full(nmet), full(nmet), full(nmet)
     m_ref, b_arr = full(nr), full(nr)
     obs_t, obs_T = full(ng), full(ng)
@@ -390,6 +393,7 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
             p = res["paths"][metric]
             status[i], reasons[i] = p.status, p.reason
             wall[i], steps[i], trace[i] = p.wall, p.steps, p.trace_level
+            n_rhs[i], n_jac[i] = p.rhs_evaluations, p.jacobian_evaluations
             e_err[i], e_raw[i], u_err[i], s_drop[i] = (p.element_error, p.element_drift_unprojected,
                                                        p.energy_error, p.entropy_decrease)
             sea_t[i] = res["t_start"] + p.time  # SEA clock starts at the observed start sample
@@ -466,6 +470,10 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
             "sea_reason": var(("metric",), reasons.astype(str), "1", "why a steepest-ascent path is missing or short"),
             "sea_wall_time": var(("metric",), wall, "s", "wall time of the steepest-ascent path"),
             "sea_steps": var(("metric",), steps, "1", "solver steps of the steepest-ascent path"),
+            "sea_rhs_evaluations": var(("metric",), n_rhs, "1",
+                                       "right-hand-side evaluations of the steepest-ascent path's integration"),
+            "sea_jacobian_evaluations": var(("metric",), n_jac, "1",
+                                            "Jacobian evaluations of the steepest-ascent path's integration"),
             "sea_trace_level": var(("metric",), trace, "1",
                                    "amount over total below which the constant mobility was scaled like mass action"),
             "sea_element_error": var(("metric",), e_err, "1", "largest relative element imbalance on the path"),

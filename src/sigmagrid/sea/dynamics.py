@@ -445,6 +445,8 @@ class _Path:
     steps: int
     wall: float
     trace_level: float = float("nan")
+    rhs_evaluations: int = 0  # right-hand sides and Jacobians the integration took: unlike the
+    jacobian_evaluations: int = 0  # wall time, these do not move with machine noise
 
 
 def _lean_lu(solver: BDF) -> BDF:
@@ -689,6 +691,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
     u0 = system.held_energy()
     phi_start_path = system.potential()
     t_end = settings.time_factor * t_scale
+    rhs_before, jac_before = system.n_rhs, system.n_jac
     run = _run_compiled if (compiled is not None and _COMPILED_STEPPER) else _run_scipy
     status, reason, ts, lams, dens, steps, u_err, raw_err, worst_drop = run(
         system, z0, lam_of, phi_start_path, drive, settings, rtol, atol, t_end, started, project_state, u0,
@@ -726,7 +729,8 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
         times[i], temps[i] = t, T
         xs[i] = n / n.sum()
     return _Path(status, reason, times, temps, xs, e_err, raw_err, u_err, max(worst_drop, grid_drop, 0.0), steps,
-                 _time.perf_counter() - started)
+                 _time.perf_counter() - started, rhs_evaluations=system.n_rhs - rhs_before,
+                 jacobian_evaluations=system.n_jac - jac_before)
 
 
 def _run_scipy(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end, started, project_state, u0,
