@@ -1,4 +1,6 @@
-"""numba kernels of :mod:`sigmagrid.sea.compiled` (imported only from there, on first use).
+"""numba kernels of :mod:`sigmagrid.sea.compiled` (imported only from there, on first use): the
+SEA right-hand side, its Jacobian, the projection onto the element totals, and the BDF loop that
+integrates a whole path with them.
 
 Module-level functions with module-level constants, so that numba can cache them on disk. numba
 freezes globals into its cache and checks only this file for changes, so the gas constant is

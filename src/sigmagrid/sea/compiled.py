@@ -1,5 +1,6 @@
-"""The SEA dynamics of the constant and Arrhenius metrics, compiled: right-hand side, Jacobian and
-the per-step projection.
+"""The SEA dynamics of the constant and Arrhenius metrics, compiled: right-hand side, Jacobian,
+the per-step projection, and the stepping loop itself (``_kernels.bdf_path``, driven by
+``dynamics._run_compiled``).
 
 The right-hand side dz/dt = V nu q / N (z = ln N) of a fitted or onsager path needs only the
 thermodynamics: the constrained temperature, the species' chemical potentials and the affinities.
@@ -8,7 +9,7 @@ called about four times a step. Here each piece is one function compiled with nu
 (:mod:`._kernels`), on the NASA 7-coefficient polynomials Cantera itself evaluates (McBride, Gordon and Reno (1993), NASA TM-4513,
 eqs. 1-3), with Cantera's conventions (mole fractions clipped at 1e-300 in the logarithm, the
 polynomial's low range up to and including T_mid). ``tests/test_sea.py`` checks it against the
-Cantera path to round-off.
+Cantera path to round-off, and the loop against the same steps through scipy's BDF.
 
 Used only where every species has NASA 7-coefficient thermodynamics and numba imports; otherwise
 the SEA dynamics evaluate through Cantera as before. numba is imported on first use, so runs
