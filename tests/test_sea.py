@@ -747,3 +747,34 @@ def test_compiled_lu_and_history_rescaling_are_lapack_s_and_scipy_s():
             scipy_bdf.change_D(expected, order, factor)
             k.change_D(D, order, factor)
             np.testing.assert_allclose(D, expected, rtol=1e-13, atol=1e-13)
+
+
+@pytest.mark.parametrize("compiled_loop", [True, False])
+def test_step_and_wall_budgets_stop_a_path_with_their_reason(h2o2_gas, compiled_loop):
+    """A path that runs out of its step or wall budget stops with status ``budget`` and says which
+    budget, keeps the levels it reached, and leaves the rest NaN; through the compiled loop and
+    through scipy's BDF alike (hydrogen-air, an invented burner pre-mix). The compiled loop looks
+    at the clock between chunks of ``dynamics._CHUNK`` steps, so the wall budget is tried on a
+    path longer than one chunk (fitted-scalar: about 370 steps)."""
+    from sigmagrid.sea import dynamics
+
+    gas, info = h2o2_gas
+    rel = reactors.relax(gas, info, "isolated", 1100.0, 2 * ct.one_atm, "H2:2, O2:1, N2:3.76", FAST)
+    try:
+        dynamics._COMPILED_STEPPER = compiled_loop
+        by_steps = sea.compare(gas, info, rel, _samples(rel), sea.SeaSettings(metrics=("fitted-diagonal",),
+                                                                             max_steps=40))
+        by_wall = sea.compare(gas, info, rel, _samples(rel), sea.SeaSettings(metrics=("fitted-scalar",),
+                                                                            max_wall_seconds=1e-9))
+    finally:
+        dynamics._COMPILED_STEPPER = True
+    one = by_steps.sel(metric="fitted-diagonal")
+    assert str(one.sea_status.values) == "budget"
+    assert "step budget 40" in str(one.sea_reason.values)
+    assert int(one.sea_steps) == 40
+    reached = np.isfinite(one.sea_time.values)
+    assert 0 < reached.sum() < reached.size and reached[:reached.sum()].all()  # the first levels only
+    one = by_wall.sel(metric="fitted-scalar")
+    assert str(one.sea_status.values) == "budget"
+    assert "wall budget" in str(one.sea_reason.values)
+    assert int(one.sea_steps) <= (dynamics._CHUNK if compiled_loop else 1)
