@@ -33,6 +33,9 @@ _COMPILED_STEPPER = True
 
 #: the globalized Newton iteration of ``_GlobalNewton`` when BDF's own fails (False: plain BDF)
 _GLOBAL_NEWTON = True
+#: its settings, in both routes: accepted steps on which the full iteration goes first after a
+#: failure, its iteration limit, its largest step in ln N
+_HARD_STEPS, _FULL_NEWTON_ITERATIONS, _MAX_LOG_STEP = 10, 10, 1.0
 #: a fresh Jacobian at every accepted step of the constant and Arrhenius metrics (False: BDF's own rule)
 _FRESH_JACOBIAN = True
 
@@ -527,7 +530,8 @@ class _GlobalNewton:
 
     ARGS = ("fun", "t_new", "y_predict", "c", "psi", "LU", "solve_lu", "scale", "tol")
 
-    def __init__(self, system: "_System", max_iter: int = 10, max_log_step: float = 1.0, hard_steps: int = 10):
+    def __init__(self, system: "_System", max_iter: int = _FULL_NEWTON_ITERATIONS,
+                 max_log_step: float = _MAX_LOG_STEP, hard_steps: int = _HARD_STEPS):
         self.system = system
         self.max_iter = max_iter
         self.max_log_step = max_log_step
@@ -816,9 +820,6 @@ def _run_scipy(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end
 
 #: accepted steps per call of the compiled loop; between calls Python checks the wall budget
 _CHUNK = 256
-#: ``_GlobalNewton``'s defaults, for the compiled loop: accepted steps on which the full iteration
-#: goes first after a failure, its iteration limit, its largest step in ln N
-_HARD_STEPS, _FULL_NEWTON_ITERATIONS, _MAX_LOG_STEP = 10, 10, 1.0
 
 
 def _run_compiled(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end, started, project_state, u0,
