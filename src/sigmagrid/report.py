@@ -7,6 +7,14 @@ import numpy as np
 from . import safety, store
 
 
+def _cost(ds, i: int) -> str:
+    """'  steps (rhs, Jacobians)' of path i; the counts are missing in files made before 2026-12-03."""
+    def count(name):
+        value = float(ds[name].values[i]) if name in ds else float("nan")
+        return f"{value:.0f}" if np.isfinite(value) else "-"
+    return f"  {count('sea_steps'):>5} ({count('sea_rhs_evaluations')}, {count('sea_jacobian_evaluations')})"
+
+
 def _fmt(value: float, unit: str, spec: str = ".4g") -> str:
     return "missing" if not np.isfinite(value) else f"{value:{spec}} {unit}"
 
@@ -81,7 +89,7 @@ def _sea_lines(ds) -> list[str]:
     settings.append(f"irreversible reactions{treatment}, {share}of the entropy production")
     lines = [f"  steepest-entropy-ascent comparison ({'; '.join(settings)}):",
              "    metric            status      R^2     reached  largest angle  time ratio 50/90/99 %   "
-             "slow modes  wall"]
+             "slow modes  wall    steps (right-hand sides, Jacobians)"]
     for i, metric in enumerate(ds["metric"].values):
         t = ds["sea_time"].values[i]
         reached = grid[np.isfinite(t)].max() if np.isfinite(t).any() else float("nan")
@@ -89,7 +97,8 @@ def _sea_lines(ds) -> list[str]:
         lines.append(f"    {str(metric):<17} {str(ds['sea_status'].values[i]):<10} "
                      f"{float(ds['fit_quality'].values[i]):8.3g} {reached:8.6g}  "
                      f"{float(ds['largest_path_angle'].values[i]):9.3g} rad  {ratios:<22} "
-                     f"{float(ds['slow_mode_difference'].values[i]):9.2e}  {float(ds['sea_wall_time'].values[i]):.2f} s")
+                     f"{float(ds['slow_mode_difference'].values[i]):9.2e}  {float(ds['sea_wall_time'].values[i]):.2f} s"
+                     + _cost(ds, i))
     for i, metric in enumerate(ds["metric"].values):
         reason = str(ds["sea_reason"].values[i])
         if reason:
