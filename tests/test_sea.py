@@ -683,7 +683,7 @@ def test_compiled_path_needs_nasa7():
 def test_compiled_path_loop_follows_scipy_s_bdf(h2o2_gas, reactor):
     """The compiled path loop (``_kernels.bdf_path``) against the same steps through scipy's BDF,
     the reference implementation it mirrors (NDF formulas and step control of Shampine and
-    Reichelt (1997), SIAM J. Sci. Comput. 18, 1, as scipy implements them): the same status, the
+    Reichelt (1997), SIAM J. Sci. Comput. 18, 1, reference from memory, as scipy implements them): the same status, the
     same progress levels reached at the same times and temperatures, and paths within 1e-8 rad of
     each other, on hydrogen-air (an invented burner pre-mix) under every constant and
     temperature-only metric. The two take the same steps (measured: times equal to 5e-10, angles

@@ -147,6 +147,17 @@ def settle(n, active, E, target, coef, p_ref, reactor, volume, pressure, T_guess
 
 
 @numba.njit(cache=True)
+def fill_amounts(z, n_full, active, n_ref, n):
+    """Amounts n (mol, all species) of the log amounts z of the active ones, at least 1e-300 mol
+    (as dynamics._System.amounts: an exact zero would make N/(N + eps) and V nu q / N 0/0)."""
+    for k in range(n_full.size):
+        n[k] = n_full[k]
+    for i in range(active.size):
+        v = n_ref * np.exp(z[i])
+        n[active[i]] = v if v > 1e-300 else 1e-300
+
+
+@numba.njit(cache=True)
 def evaluate(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
              nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref):
     """The state of log amounts z and the SEA rates there.
@@ -160,10 +171,8 @@ def evaluate(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
     """
     ns = n_full.size
     na = active.size
-    n = n_full.copy()
-    for i in range(na):
-        v = n_ref * np.exp(z[i])
-        n[active[i]] = v if v > 1e-300 else 1e-300
+    n = np.empty(ns)
+    fill_amounts(z, n_full, active, n_ref, n)
     total = 0.0
     for k in range(ns):
         total += n[k]
@@ -804,17 +813,9 @@ def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale
             istate[I_LU] = 0
         istate[I_STEPS] += 1
         # ---- dynamics._sea_path: project onto the element totals, guard the entropy, hand back
-        for k in range(nf):
-            amounts[k] = n_full[k]
-        big = -np.inf
-        for i in range(n):
-            if yv[i] > big:
-                big = yv[i]
-        if not big < 50.0:
+        if not yv.max() < 50.0:  # as dynamics._System.amounts: out of range
             return STEP_FAILED, nrec
-        for i in range(n):
-            v = n_ref * np.exp(yv[i])
-            amounts[active[i]] = v if v > 1e-300 else 1e-300
+        fill_amounts(yv, n_full, active, n_ref, amounts)
         raw = 0.0
         for e in range(elements.shape[0]):
             s = -target_full[e]

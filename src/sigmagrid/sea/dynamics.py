@@ -633,6 +633,31 @@ class _GlobalNewton:
         return None
 
 
+@dataclass(frozen=True)
+class _Progress:
+    """SEA progress of a potential phi (J/K): start + (1 - start)(phi - phi_start)/drive, 1.
+    The compiled loop computes it from the same three numbers."""
+
+    start: float
+    phi_start: float  # J/K
+    drive: float  # J/K, Phi_eq - Phi_start
+
+    def __call__(self, phi):
+        return self.start + (1.0 - self.start) * (phi - self.phi_start) / self.drive
+
+
+@dataclass(frozen=True)
+class _Balance:
+    """The element totals a path holds: all species' element matrix and totals (mol) with their
+    scale, and the active species' rows with the totals they carry (what the projection solves)."""
+
+    elements: np.ndarray
+    target: np.ndarray
+    e_scale: np.ndarray
+    E_active: np.ndarray
+    E_target: np.ndarray
+
+
 def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements, settings, t_scale):
     """Integrate one SEA path and sample it at the progress grid (NaN where it is not reached).
 
@@ -667,10 +692,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
     rtol = settings.rtol if log_mean else settings.metric_rtol
     atol = settings.atol if log_mean else settings.metric_atol
 
-    def lam_of(phi):
-        return lam_start + (1.0 - lam_start) * (phi - phi_start) / drive
-
-    lam_of.start, lam_of.phi_start = lam_start, phi_start
+    lam_of = _Progress(lam_start, phi_start, drive)
 
     project = _Projector(elements, target, system.active, n0)
 
@@ -698,8 +720,8 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
     rhs_before, jac_before = system.n_rhs, system.n_jac
     run = _run_compiled if (compiled is not None and _COMPILED_STEPPER) else _run_scipy
     status, reason, ts, lams, dens, steps, u_err, raw_err, worst_drop = run(
-        system, z0, lam_of, phi_start_path, drive, settings, rtol, atol, t_end, started, project_state, u0,
-        elements, target, e_scale, E_active, project.target)
+        system, z0, lam_of, phi_start_path, settings, rtol, atol, t_end, started, project_state, u0,
+        _Balance(elements, target, e_scale, E_active, project.target))
     e_err = 0.0
 
     ts_a, lams_a = np.asarray(ts), np.maximum.accumulate(np.asarray(lams))
@@ -737,8 +759,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
                  jacobian_evaluations=system.n_jac - jac_before)
 
 
-def _run_scipy(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end, started, project_state, u0,
-               elements, target, e_scale, E_active, E_target):
+def _run_scipy(system, z0, lam_of, phi_start, settings, rtol, atol, t_end, started, project_state, u0, balance):
     """The steps of one SEA path through scipy's BDF with ``_GlobalNewton`` (the log-mean metric, and
     the others where the compiled route cannot run). Returns (status, reason, clock times s,
     progress, dense outputs as (clock offset s, interpolant), steps, largest energy error, largest
@@ -777,7 +798,7 @@ def _run_scipy(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end
             # project the accepted step back onto the element constraints and hand it to the
             # solver (its whole history shifts with it, see _replace_state), so drift cannot pile up
             n, T, raw, phi, energy = project_state(solver.y)
-            if (phi_prev - phi) / drive > _DROP_TOLERANCE and retries < _DROP_RETRIES:
+            if (phi_prev - phi) / lam_of.drive > _DROP_TOLERANCE and retries < _DROP_RETRIES:
                 # the step's iteration converged to a state of lower entropy, which the exact
                 # SEA path never reaches: take the step again at half the size
                 retries += 1
@@ -803,7 +824,7 @@ def _run_scipy(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end
                     pass  # BDF keeps its last Jacobian
             u_err = max(u_err, abs(energy - u0) / max(abs(u0), 1e-300))
             raw_err = max(raw_err, raw)
-            worst_drop = max(worst_drop, (phi_prev - phi) / drive)
+            worst_drop = max(worst_drop, (phi_prev - phi) / lam_of.drive)
             phi_prev = phi
             ts.append(offset + solver.t)
             lams.append(lam_of(phi))
@@ -822,8 +843,7 @@ def _run_scipy(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end
 _CHUNK = 256
 
 
-def _run_compiled(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_end, started, project_state, u0,
-                  elements, target, e_scale, E_active, E_target):
+def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, t_end, started, project_state, u0, balance):
     """The steps of one SEA path in the compiled loop (``_kernels.bdf_path``): the same BDF, Newton
     iterations, projection, entropy guard and clock restarts as :func:`_run_scipy`, without its
     Python cost per step (about 0.25 ms). Returns what :func:`_run_scipy` returns.
@@ -852,17 +872,17 @@ def _run_compiled(system, z0, lam_of, phi_start, drive, settings, rtol, atol, t_
     piv = np.empty(na, np.int64)
     rec = (np.empty(_CHUNK), np.empty(_CHUNK), np.empty(_CHUNK), np.empty(_CHUNK, np.int64),
            np.empty((_CHUNK, max_order + 1, na)), np.empty(_CHUNK))
-    elements = np.ascontiguousarray(elements, float)
+    elements = np.ascontiguousarray(balance.elements, float)
     ts, lams, dens = [0.0], [lam_of(phi_start)], []
     status, reason, offset, restarts = None, "", 0.0, 0
     lam_stop = settings.end_progress
-    lam_start, phi_ref = lam_of.start, lam_of.phi_start  # the kernel computes the progress as lam_of does
     if not k.bdf_start(z0, H, L, active_pos, nu_sum, rtol, atol, fs, istate, D, J, yv):
         return ("failed", "no right-hand side or Jacobian at the SEA start state", ts, lams, dens, 0, 0.0, 0.0, 0.0)
     while status is None:
         code, nrec = k.bdf_path(
-            H, L, active_pos, nu_sum, E_active, E_target, elements, target, e_scale, alpha, gamma, error_const,
-            rtol, atol, newton_tol, lam_start, phi_ref, drive, lam_stop, offset, t_end, settings.max_steps, u0,
+            H, L, active_pos, nu_sum, balance.E_active, balance.E_target, elements, balance.target, balance.e_scale,
+            alpha, gamma, error_const, rtol, atol, newton_tol, lam_of.start, lam_of.phi_start, lam_of.drive,
+            lam_stop, offset, t_end, settings.max_steps, u0,
             _DROP_TOLERANCE, _DROP_RETRIES, _HARD_STEPS, _FULL_NEWTON_ITERATIONS, _MAX_LOG_STEP, _GLOBAL_NEWTON,
             _FRESH_JACOBIAN,
             fs, istate, D, yv, J, LU, piv, *rec)
@@ -904,11 +924,9 @@ class _LazyDense(list):
     recorded (t_old, t, h, order, differences): most steps are never sampled."""
 
     def __getitem__(self, i):
-        from scipy.integrate._ivp.bdf import BdfDenseOutput
-
         offset, dense = list.__getitem__(self, i)
         if isinstance(dense, tuple):
-            dense = BdfDenseOutput(*dense)
+            dense = _bdf.BdfDenseOutput(*dense)
             list.__setitem__(self, i, (offset, dense))
         return offset, dense
 
