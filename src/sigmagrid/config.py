@@ -238,3 +238,18 @@ CASE_SETTINGS = ("stop", "solver", "reactor_volume", "storage", "sea")  # the SE
 def settings_hash(config: dict) -> str:
     """sha256 of the settings that shape each case's result; equal hashes, reusable case files."""
     return config_hash({key: config.get(key) for key in CASE_SETTINGS})
+
+
+def cut_name(criterion: str, threshold: float) -> str:
+    """File-name stem of a mechanism cut, e.g. ``local-0.001``."""
+    return f"{criterion}-{threshold:g}"
+
+
+def cuts(config: dict) -> list[tuple[str, str, float]]:
+    """(name, criterion, threshold) of every cut a validated config asks for, in config order.
+
+    Here rather than in :mod:`sigmagrid.rank` because the workflow needs the names when it is
+    parsed, before any job runs: importing the ranking (pandas, xarray) cost 0.4 s of that parse.
+    """
+    red = config["reduction"]
+    return [(cut_name(c, float(t)), c, float(t)) for c in red["criteria"] for t in red["thresholds"]]

@@ -40,6 +40,7 @@ import pandas as pd
 import xarray as xr
 
 from . import grid as grid_mod, mechanism, store
+from .config import cut_name, cuts  # noqa: F401 - part of this module's interface
 from .errors import InputError
 
 CRITERIA = ("local", "integrated-max", "integrated-mean")
@@ -322,17 +323,6 @@ def write_ranking(summary_path, case_files, table_path, netcdf_path, negligible:
 def reduction_settings(config: dict) -> dict:
     """The ``reduction`` section of a validated config (defaults filled in by config.validate)."""
     return config["reduction"]
-
-
-def cut_name(criterion: str, threshold: float) -> str:
-    """File-name stem of a cut, e.g. ``local-0.001``."""
-    return f"{criterion}-{threshold:g}"
-
-
-def cuts(config: dict) -> list[tuple[str, str, float]]:
-    """(name, criterion, threshold) of every cut a config asks for, in config order."""
-    red = reduction_settings(config)
-    return [(cut_name(c, float(t)), c, float(t)) for c in red["criteria"] for t in red["thresholds"]]
 
 
 def kept_reactions(ranking: xr.Dataset, criterion: str, threshold: float, negative: str = "keep") -> np.ndarray:

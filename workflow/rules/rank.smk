@@ -3,9 +3,8 @@
 # its case files stay under results/reduced/<cut>/cases so an interrupted run resumes.
 import re
 
-from sigmagrid import rank as sg_rank
 
-CUTS = [name for name, _, _ in sg_rank.cuts(CONFIG)]
+CUTS = [name for name, _, _ in sg_config.cuts(CONFIG)]
 VALIDATE_CUTS = bool(CONFIG["reduction"]["validate"])
 
 
