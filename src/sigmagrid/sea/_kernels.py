@@ -509,13 +509,14 @@ def change_D(D, order, factor):
 
 
 @numba.njit(cache=True)
-def _simplified_newton(H, L, fs, y_predict, c, psi, LU, piv, scale, tol, y, d, f, dy, work):
-    """scipy's ``solve_bdf_system``: at most NEWTON_MAXITER iterations on one LU. Returns the
-    iteration count, negative if it did not converge; y and d hold the result."""
+def _simplified_newton(H, L, fs, y_predict, c, psi, LU, piv, scale, tol, y, d, f, dy, work, y_start):
+    """scipy's ``solve_bdf_system``, started from y_start (scipy: the predictor): at most
+    NEWTON_MAXITER iterations on one LU. Returns the iteration count, negative if it did not
+    converge; y and d (y - y_predict) hold the result."""
     n = y.size
     for i in range(n):
-        y[i] = y_predict[i]
-        d[i] = 0.0
+        y[i] = y_start[i]
+        d[i] = y_start[i] - y_predict[i]
     dy_norm_old = -1.0
     for k in range(NEWTON_MAXITER):
         if not _rhs(y, H, L, fs, f):
@@ -649,7 +650,7 @@ def bdf_start(z, H, L, active_pos, nu_sum, rtol, atol, fs, istate, D, J, yv):
 @numba.njit(cache=True)
 def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale, alpha, gamma, error_const,
              rtol, atol, newton_tol, lam_start, phi_start, drive, lam_stop, offset, t_end, max_steps, u0,
-             drop_tol, drop_retries, hard_steps, max_iter, max_log_step, global_newton, fresh_jacobian,
+             drop_tol, drop_retries, hard_steps, max_iter, max_log_step, global_newton, fresh_jacobian, still_start,
              fs, istate, D, yv, J, LU, piv, rec_t, rec_told, rec_h, rec_order, rec_D, rec_lam):
     """Steps of one SEA path until a stop (the codes STEP_*), at most rec_t.size accepted steps per
     call. The state (fs, istate, D, yv, J, LU, piv) carries over between calls; each accepted step
@@ -737,8 +738,13 @@ def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale
                     if k > 0:
                         converged, n_iter, done = True, k, True
                 if not done:
+                    # where the predictor lies within still_start tolerances of the last state, the
+                    # iteration starts from that state (dynamics._STILL_START says why)
+                    for i in range(n):
+                        work[i] = y_predict[i] - yv[i]
+                    start = yv if _rms(work, scale) < still_start else y_predict
                     k = _simplified_newton(H, L, fs, y_predict, c, psi, LU, piv, scale, newton_tol, y_new, d, f, dy,
-                                           work) if istate[I_LU] == 1 else -1
+                                           work, start) if istate[I_LU] == 1 else -1
                     istate[I_RHS] += abs(k)
                     if k > 0:
                         converged, n_iter = True, k

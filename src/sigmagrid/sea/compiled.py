@@ -94,7 +94,7 @@ def _compile():
     coefficients = np.ones(6)
     _kernels.bdf_path(head, tail, one_i, np.zeros(1), np.ones((1, 1)), one_f, np.ones((1, 1)), one_f, one_f,
                       coefficients, coefficients, coefficients, 1e-5, 1e-7, 0.03, 0.0, 0.0, 1.0, 0.0, 0.0, 1.0, 1,
-                      0.0, 1e-5, 8, 10, 10, 1.0, True, True, fs, istate, D, y, J, LU, piv, np.empty(1), np.empty(1),
+                      0.0, 1e-5, 8, 10, 10, 1.0, True, True, 30.0, fs, istate, D, y, J, LU, piv, np.empty(1), np.empty(1),
                       np.empty(1), np.empty(1, np.int64), np.empty((1, 6, 1)), np.empty(1))
     return _kernels
 

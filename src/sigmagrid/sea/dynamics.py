@@ -39,6 +39,16 @@ _HARD_STEPS, _FULL_NEWTON_ITERATIONS, _MAX_LOG_STEP = 10, 10, 1.0
 #: a fresh Jacobian at every accepted step of the constant and Arrhenius metrics (False: BDF's own rule)
 _FRESH_JACOBIAN = True
 
+#: The compiled loop starts a step's simplified Newton iteration from the last accepted state,
+#: not from BDF's predictor, where the two lie within this many tolerances of each other (scaled
+#: RMS norm). Late on an onsager path the state barely moves while the solver chatters at
+#: tolerance level; extrapolated from that history, the predictor carries the chatter, and the
+#: iteration from it failed or landed on a solution far enough off to reject the step. The
+#: converged solution solves the same BDF equations either way. Methane check grid, onsager
+#: paths, sum over 24 cases: 76 800 -> 60 900 steps, 18.0 -> 13.7 s; the fitted paths' cost
+#: unchanged (always starting from the last state made them 25 % dearer); 0 gives scipy's rule.
+_STILL_START = 30.0
+
 #: restarts of one SEA path's integration when its clock runs out of resolution (see ``_sea_path``)
 _RESTARTS = 50
 
@@ -884,7 +894,7 @@ def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, t_end, st
             alpha, gamma, error_const, rtol, atol, newton_tol, lam_of.start, lam_of.phi_start, lam_of.drive,
             lam_stop, offset, t_end, settings.max_steps, u0,
             _DROP_TOLERANCE, _DROP_RETRIES, _HARD_STEPS, _FULL_NEWTON_ITERATIONS, _MAX_LOG_STEP, _GLOBAL_NEWTON,
-            _FRESH_JACOBIAN,
+            _FRESH_JACOBIAN, _STILL_START,
             fs, istate, D, yv, J, LU, piv, *rec)
         for i in range(nrec):
             order = int(rec[3][i])
