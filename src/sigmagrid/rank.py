@@ -40,7 +40,7 @@ import pandas as pd
 import xarray as xr
 
 from . import grid as grid_mod, mechanism, store
-from .config import cut_name, cuts  # noqa: F401 - part of this module's interface
+from .config import cuts
 from .errors import InputError
 
 CRITERIA = ("local", "integrated-max", "integrated-mean")
