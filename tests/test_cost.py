@@ -42,3 +42,17 @@ def test_estimate_without_sea_loads_no_kernels():
 def test_estimate_command_refuses_bad_sample():
     done = run_cli("estimate", str(REPO / "config" / "config.yaml"), "--sample", "0")
     assert done.returncode == 2 and "--sample" in done.stderr and "Traceback" not in done.stderr
+
+
+def test_benchmark_measures_each_codec_on_a_real_case():
+    """The observe figures of ``sigmagrid bench`` for the three storage codecs: each one writes a
+    real gri30 case file of its own size (no timing is asserted; speeds are the benchmark's job)."""
+    from sigmagrid import bench
+
+    results = bench.observe_ratio(1)
+    results.update(bench.observe_codecs(1))
+    assert results["observe_compression"] == "zlib"
+    assert results["bytes_per_case"] < results["bytes_per_case_blosc_zstd"] < results["bytes_per_case_none"]
+    assert all(results[k] > 0 for k in ("observe_ratio", "observe_ratio_blosc_zstd", "observe_ratio_none"))
+    table = bench.format_table(results)
+    assert "observe_ratio_blosc_zstd" in table and "storage.compression: none" in table

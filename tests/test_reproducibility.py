@@ -14,12 +14,14 @@ import sys
 import cantera as ct
 import numpy as np
 import pandas as pd
+import pytest
 import xarray as xr
 import yaml
 
 import sigmagrid
 from conftest import count_tried, run_cli, without_sea
-from sigmagrid import config as config_mod, grid as grid_mod, mechanism, store
+from sigmagrid import config as config_mod, grid as grid_mod, mechanism, runner, store
+from sigmagrid.errors import InputError
 
 RAW = {
     "study": "reformer outlet polishing (reproducibility test)",
@@ -130,3 +132,44 @@ def test_a_rerun_redoes_only_cases_whose_settings_changed(tmp_path):
     with_sea = dict(changed, sea={"metrics": ["log-mean"]})  # the SEA comparison is in the case file too
     assert _computed(_run(tmp_path, with_sea)) == 6
     count_tried("reproducibility: reruns checked for what they recompute", 5)
+
+
+def test_every_codec_stores_the_same_bit_rounded_values(tmp_path):
+    """The three ``storage.compression`` codecs pack the same numbers.
+
+    Outside check: BitRound keeps b mantissa bits, so each stored value lies within a relative
+    2^-(b+1) of the input (Kloewer et al. 2021, Nature Computational Science 1, 713); the netCDF-C
+    library applies it, and it must apply with every codec, ``none`` included.
+    """
+    rng = np.random.default_rng(7)
+    # rates of progress span many decades; a 1-sample array checks the tiny-array fallback
+    samples = (10.0 ** rng.uniform(-30, 5, (400, 60))).astype(np.float32)
+    ds = xr.Dataset({"forward_rate": (("time", "reaction"), samples),
+                     "net_rate": (("time", "reaction"), -samples),
+                     "affinity": (("one", "reaction"), samples[:1]),
+                     "temperature": ("time", np.linspace(1000.0, 2500.0, 400))})
+    stored = {}
+    for codec in store.COMPRESSIONS:
+        path = store.write_atomic(ds, tmp_path / f"{codec}.nc", codec)
+        stored[codec] = xr.load_dataset(path)
+        bits = store.SIGNIFICANT_BITS["forward_rate"]
+        error = np.abs(stored[codec]["forward_rate"].values.astype(float) / samples - 1.0)
+        assert error.max() <= 2.0 ** -(bits + 1), codec
+        assert error.max() > 0, codec  # quantized, not stored verbatim
+    for codec in ("blosc-zstd", "none"):
+        xr.testing.assert_identical(stored["zlib"], stored[codec])
+    sizes = {codec: (tmp_path / f"{codec}.nc").stat().st_size for codec in store.COMPRESSIONS}
+    assert sizes["zlib"] < sizes["none"] and sizes["blosc-zstd"] < sizes["none"]
+    with pytest.raises(ValueError, match="storage.compression must be one of zlib, blosc-zstd, none"):
+        store.write_atomic(ds, tmp_path / "x.nc", "lz4")
+    assert not (tmp_path / "x.nc").exists()
+
+
+def test_the_codec_is_a_validated_setting_that_does_not_force_a_rerun():
+    raw = dict(RAW, storage={"max_samples": 120, "compression": "blosc-zstd"})
+    assert config_mod.settings_hash(config_mod.validate(raw)) == config_mod.settings_hash(config_mod.validate(RAW))
+    assert runner.RunSettings.from_config(config_mod.validate(raw)).compression == "blosc-zstd"
+    with pytest.raises(InputError) as err:
+        config_mod.validate(dict(RAW, storage={"compression": "lz4"}))
+    assert err.value.field == "storage.compression"
+    assert "allowed values: zlib, blosc-zstd, none" in err.value.message

@@ -24,7 +24,7 @@ import cantera as ct
 import numpy as np
 import yaml
 
-from . import config as config_mod, grid as grid_mod, mechanism, runner
+from . import config as config_mod, grid as grid_mod, mechanism, runner, store
 from .reactors import make_network
 
 METHANE_AIR = {"fuel": "CH4:1", "oxidizer": "O2:1, N2:3.76"}
@@ -84,6 +84,7 @@ class _Pipeline:
 def observe_ratio(repeats: int, config: dict | None = None) -> dict:
     """Per-case pipeline without SEA (relax, diagnostics, file) against bare Cantera."""
     config = config or _methane_config()
+    codec = config["storage"]["compression"]
     case = grid_mod.expand(config).cases[0]
     pipeline = _Pipeline(config)
     gas = mechanism.load(mechanism.resolve(config["mechanism"]))
@@ -103,7 +104,18 @@ def observe_ratio(repeats: int, config: dict | None = None) -> dict:
             ratios.append(t_ours / t_bare)
     return {"observe_ratio": statistics.median(ratios), "observe_seconds": statistics.median(ours),
             "bare_seconds": statistics.median(bare), "bytes_per_case": size,
-            "observe_case": f"{case.label} ({config['mechanism']})"}
+            "observe_case": f"{case.label} ({config['mechanism']})", "observe_compression": codec}
+
+
+def observe_codecs(repeats: int) -> dict:
+    """observe_ratio and bytes_per_case with the non-default ``storage.compression`` codecs."""
+    out = {}
+    for codec in store.COMPRESSIONS[1:]:
+        found = observe_ratio(repeats, _methane_config(storage={"compression": codec}))
+        key = codec.replace("-", "_")
+        out[f"observe_ratio_{key}"] = found["observe_ratio"]
+        out[f"bytes_per_case_{key}"] = found["bytes_per_case"]
+    return out
 
 
 def grid_config(n_cases: int) -> dict:
@@ -275,6 +287,8 @@ def run(quick: bool = False, report=print) -> dict:
     results: dict = {"quick": quick, "cantera_version": ct.__version__, "cpu_count": os.cpu_count()}
     report("observe: gri30 case, pipeline vs bare Cantera ...")
     results.update(observe_ratio(3 if quick else 7))
+    report("observe: the same with the other storage codecs ...")
+    results.update(observe_codecs(3 if quick else 7))
     report("SEA paths: each metric vs bare Cantera ...")
     results.update(sea_ratio(1 if quick else 3))
     report("query: top reactions on a synthetic 1000-case summary ...")
@@ -291,6 +305,10 @@ def format_table(results: dict) -> str:
     rows = [("observe_ratio", "pipeline / bare Cantera, one gri30 case", "1"),
             ("observe_seconds", "pipeline time per case", "s"),
             ("bytes_per_case", "case file size", "B"),
+            *[(f"{name}_{codec.replace('-', '_')}", f"{what}, storage.compression: {codec}", unit)
+              for codec in store.COMPRESSIONS[1:]
+              for name, what, unit in (("observe_ratio", "pipeline / bare Cantera", "1"),
+                                       ("bytes_per_case", "case file size", "B"))],
             ("grid_efficiency", "(serial time / 2) / Snakemake wall time", "1"),
             ("grid_snakemake_seconds", f"Snakemake wall time, {results.get('grid_cases')} cases", "s"),
             ("job_peak_memory_bytes", "peak memory of a job", "B"),

@@ -26,7 +26,7 @@ DEFAULTS: dict[str, Any] = {
     "stop": {"max_time": 10.0, "progress_tolerance": 1e-8, "ignition_rise": 50.0},
     "solver": {"rtol": 1e-10, "atol": 1e-20, "max_steps": 200_000},
     "reactor_volume": 1e-3,
-    "storage": {"max_samples": 500, "max_bytes": 16e6},
+    "storage": {"max_samples": 500, "max_bytes": 16e6, "compression": "zlib"},
     "batch": {"cases_per_job": 8, "max_cases": 20_000},
     "sea": {"enabled": True},
     "progress_grid": {"points": 101},
@@ -236,8 +236,15 @@ CASE_SETTINGS = ("stop", "solver", "reactor_volume", "storage", "sea")  # the SE
 
 
 def settings_hash(config: dict) -> str:
-    """sha256 of the settings that shape each case's result; equal hashes, reusable case files."""
-    return config_hash({key: config.get(key) for key in CASE_SETTINGS})
+    """sha256 of the settings that shape each case's result; equal hashes, reusable case files.
+
+    ``storage.compression`` is left out: the codec changes how the file is packed, not one value
+    in it, so a file written with another codec is still a valid result.
+    """
+    settings = {key: config.get(key) for key in CASE_SETTINGS}
+    if isinstance(settings.get("storage"), dict):
+        settings["storage"] = {k: v for k, v in settings["storage"].items() if k != "compression"}
+    return config_hash(settings)
 
 
 def cut_name(criterion: str, threshold: float) -> str:

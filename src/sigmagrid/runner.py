@@ -32,6 +32,7 @@ class RunSettings:
     relax: RelaxSettings
     max_samples: int = 500
     max_bytes: float = 16e6  # bytes of stored float32 samples per case, before compression
+    compression: str = "zlib"  # codec of the stored samples, one of store.COMPRESSIONS
     sea: "sea_mod.SeaSettings | None" = None  # None: no steepest-entropy-ascent comparison
 
     @classmethod
@@ -44,6 +45,7 @@ class RunSettings:
                                 volume=float(config["reactor_volume"])),
             max_samples=int(config["storage"]["max_samples"]),
             max_bytes=float(config["storage"]["max_bytes"]),
+            compression=str(config["storage"].get("compression", "zlib")),
             sea=_sea_settings(config.get("sea", {})),
         )
 
@@ -202,7 +204,7 @@ def run_case_to_file(case: grid_mod.Case, gas: ct.Solution, info: mechanism.Mech
                                 info=info, equations=info.equations, species=info.species,
                                 equilibrium_mole_fractions=None,
                                 flammability=safety.screen_flammability(case.mole_fractions()), provenance=meta)
-    store.write_atomic(ds, target)
+    store.write_atomic(ds, target, settings.compression)
     return ds
 
 

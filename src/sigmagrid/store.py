@@ -56,6 +56,18 @@ SIGNIFICANT_BITS = {name: int(np.ceil(np.log2(10.0**d / 5.0))) - 1 for name, d i
 #: once the samples are bit-rounded
 COMPRESSION_LEVEL = 1
 
+#: Codecs of the stored path samples (``storage.compression``). ``zlib`` (deflate with byte
+#: shuffle) is read by every netCDF-4/HDF5 reader. ``blosc-zstd`` compresses the bit-rounded
+#: samples about 3x faster for 10 % more bytes; its HDF5 filter (id 32001) ships with the netCDF4
+#: wheels and netCDF-C >= 4.9 builds, but h5py and h5netcdf need ``import hdf5plugin`` first.
+#: ``none`` writes the samples as they are: fastest, readable everywhere, twice the bytes.
+COMPRESSIONS = ("zlib", "blosc-zstd", "none")
+
+#: netCDF-C's blosc filter fails the whole write ("Buffer is uncompressible") on a chunk it cannot
+#: shrink, which a tiny array can be; arrays below this size keep zlib. Bit-rounded samples at or
+#: above it always shrink: their low mantissa byte is zero.
+BLOSC_MIN_BYTES = 4096
+
 
 def disequilibrium(ds: xr.Dataset) -> xr.DataArray:
     """x_j = A_j / (R T) of a case file, dimensionless (derived, so it is not stored)."""
@@ -128,26 +140,36 @@ def _attrs(units: str, long_name: str, **extra) -> dict:
     return {"units": units, "long_name": long_name, **extra}
 
 
-def write_atomic(ds: xr.Dataset, path: str | Path, compress: bool = True) -> Path:
+def write_atomic(ds: xr.Dataset, path: str | Path, compression: str = "zlib") -> Path:
     """Write a Dataset to netCDF under a temporary name in the same folder, then rename.
 
-    A killed process leaves at most a ``.tmp-*`` file, never a half-written ``path``.
+    ``compression`` is one of :data:`COMPRESSIONS`; it picks the codec of the bit-rounded path
+    samples (the other arrays always use zlib, or nothing with ``none``). The stored values are
+    the same with every codec. A killed process leaves at most a ``.tmp-*`` file, never a
+    half-written ``path``.
     """
+    if compression not in COMPRESSIONS:
+        raise ValueError(f"storage.compression must be one of {', '.join(COMPRESSIONS)}, not {compression!r}")
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     encoding = {}
     for name, var in ds.variables.items():
-        if var.dtype.kind in "fiu" and var.ndim >= 1 and compress:
-            enc = {"zlib": True, "complevel": COMPRESSION_LEVEL, "shuffle": True}
-            if name in SIGNIFICANT_BITS and var.dtype == np.float32:
-                # quantize the mantissa before compression: float32 noise digits do not compress
-                enc.update(significant_digits=SIGNIFICANT_BITS[name], quantize_mode="BitRound")
-            if var.ndim >= 1 and var.size > 0:
-                enc["chunksizes"] = tuple(min(s, 512) if i == 0 else s for i, s in enumerate(var.shape))
-            encoding[name] = enc
+        enc = {}
+        if var.dtype.kind in "fiu" and var.ndim >= 1 and var.size > 0 and compression != "none":
+            enc = {"zlib": True, "complevel": COMPRESSION_LEVEL, "shuffle": True,
+                   "chunksizes": tuple(min(s, 512) if i == 0 else s for i, s in enumerate(var.shape))}
+        if name in SIGNIFICANT_BITS and var.dtype == np.float32:
+            if compression == "blosc-zstd" and var.nbytes >= BLOSC_MIN_BYTES:
+                del enc["zlib"], enc["complevel"], enc["shuffle"]
+                enc.update(compression="blosc_zstd", complevel=1, blosc_shuffle=1)
+            # quantize the mantissa (with every codec, so the stored values do not depend on it):
+            # float32 noise digits do not compress
+            enc.update(significant_digits=SIGNIFICANT_BITS[name], quantize_mode="BitRound")
         if var.dtype.kind == "f":
             # CF: coordinate variables carry no fill value; data variables mark missing as NaN
-            encoding.setdefault(name, {})["_FillValue"] = None if name in ds.dims else np.nan
+            enc["_FillValue"] = None if name in ds.dims else np.nan
+        if enc:
+            encoding[name] = enc
     with atomic_path(path, ".tmp-nc") as tmp:
         ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
     return path
