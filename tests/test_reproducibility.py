@@ -173,3 +173,32 @@ def test_the_codec_is_a_validated_setting_that_does_not_force_a_rerun():
         config_mod.validate(dict(RAW, storage={"compression": "lz4"}))
     assert err.value.field == "storage.compression"
     assert "allowed values: zlib, blosc-zstd, none" in err.value.message
+
+
+def test_the_define_first_writer_writes_what_xarray_writes(case_files, tmp_path, monkeypatch):
+    """``store.write_atomic`` defines every variable before it writes any array (xarray interleaves
+    the two); the files must read back exactly as those of xarray's own ``Dataset.to_netcdf`` with
+    the same encoding (reference: xarray), for a case file with its SEA comparison and summaries."""
+    from sigmagrid import query
+
+    paths = [ds.encoding["source"] for ds in case_files.values()]
+    summary, _ = store.summarize(paths, workers=1)
+    datasets = {"case": case_files[next(iter(case_files))], "summary": summary,
+                "synthetic summary": query.synthetic_summary(40, 12)}
+    written = {}
+    for name, ds in datasets.items():
+        with monkeypatch.context() as m:  # xarray's writer, as write_atomic used it before
+            m.setattr(store, "_to_netcdf4", lambda d, p, enc: d.to_netcdf(p, engine="netcdf4", format="NETCDF4",
+                                                                          encoding=enc))
+            store.write_atomic(ds, tmp_path / f"{name}-xarray.nc")
+        with monkeypatch.context() as m:  # ours, with the fallback to to_netcdf made impossible
+            m.setattr(xr.Dataset, "to_netcdf", lambda *a, **k: pytest.fail("the define-first writer fell back"))
+            store.write_atomic(ds, tmp_path / f"{name}-ours.nc")
+        ref, ours = (xr.load_dataset(tmp_path / f"{name}-{w}.nc") for w in ("xarray", "ours"))
+        xr.testing.assert_identical(ref, ours)
+        for var in ref.variables:  # chunks, filters, quantization, fill values, dtypes
+            a = {k: v for k, v in ref[var].encoding.items() if k != "source"}
+            b = {k: v for k, v in ours[var].encoding.items() if k != "source"}
+            assert repr(a) == repr(b), (name, var)
+        written[name] = ours
+    assert "sea_status" in written["case"] and "progress" in written["case"].dims  # the SEA part was written

@@ -171,8 +171,49 @@ def write_atomic(ds: xr.Dataset, path: str | Path, compression: str = "zlib") ->
         if enc:
             encoding[name] = enc
     with atomic_path(path, ".tmp-nc") as tmp:
-        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
+        _to_netcdf4(ds, tmp, encoding)
     return path
+
+
+def _to_netcdf4(ds: xr.Dataset, path: Path, encoding: dict) -> None:
+    """``ds.to_netcdf(path, engine="netcdf4", format="NETCDF4", encoding=encoding)``, except that
+    every variable is defined before any array is written.
+
+    xarray writes each array right after defining its variable. Each such write ends netCDF-C's
+    define mode, which writes out the metadata defined so far, and the next definition reopens
+    it: a case file of 38 variables took 0.025 s on h2o2 and 0.068 s on gri30, against 0.010 s
+    and 0.050 s defined first (2026-12-03). The encoding is xarray's own (its store and
+    ``dump_to_store``); only the order of the writes differs. Where that internal API has moved
+    or fails, the plain ``to_netcdf`` writes the file.
+    """
+    try:
+        from xarray.backends.common import ArrayWriter
+        from xarray.backends.netCDF4_ import NetCDF4DataStore
+        try:
+            from xarray.backends.writers import dump_to_store
+        except ImportError:  # xarray before 2025
+            from xarray.backends.api import dump_to_store
+
+        class DefineFirst(ArrayWriter):
+            __slots__ = ("pending",)
+
+            def __init__(self):
+                super().__init__()
+                self.pending = []
+
+            def add(self, source, target, region=None):
+                self.pending.append((source, target, region))
+
+        writer = DefineFirst()
+        store = NetCDF4DataStore.open(str(path), mode="w", format="NETCDF4")
+        try:
+            dump_to_store(ds, store, writer, encoding=encoding)
+            for source, target, region in writer.pending:
+                target[region if region else ...] = source
+        finally:
+            store.close()
+    except Exception:  # noqa: BLE001 - xarray's public writer says what is wrong, or works
+        ds.to_netcdf(path, engine="netcdf4", format="NETCDF4", encoding=encoding)
 
 
 #: Case-file attributes repeated in every row of cases.csv, so the table alone says how it was made.
