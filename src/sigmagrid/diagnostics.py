@@ -133,17 +133,20 @@ class SignTracker:
         self.peak_total = 0.0
         self.member_min = np.zeros(info.reversible.size)
 
-    def update(self, sigma: np.ndarray) -> None:
-        """Take in sigma_j (W m-3 K-1) of a block of steps, shape (n_steps, n_reactions)."""
+    def update(self, sigma: np.ndarray, total: np.ndarray | None = None) -> None:
+        """Take in sigma_j (W m-3 K-1) of a block of steps, shape (n_steps, n_reactions), and
+        optionally its row sums ``total`` if the caller has them."""
         if sigma.size == 0:
             return
-        self.peak_total = max(self.peak_total, float(sigma.sum(axis=1).max()))
+        total = sigma.sum(axis=1) if total is None else total
+        self.peak_total = max(self.peak_total, float(total.max()))
+        lowest = sigma.min(axis=0)  # per reaction: one pass serves the singles and the members
         if self.singles.any():
-            self.min_single = min(self.min_single, float(sigma[:, self.singles].min()))
+            self.min_single = min(self.min_single, float(lowest[self.singles].min()))
         if self.groups is not None:
             self.min_group = min(self.min_group, float((sigma @ self.groups).min()))
         if self.in_group.any():
-            np.minimum(self.member_min, sigma.min(axis=0), out=self.member_min)
+            np.minimum(self.member_min, lowest, out=self.member_min)
 
     def audit(self, produced: np.ndarray) -> SignAudit:
         peak = self.peak_total if self.peak_total > 0 else 1.0

@@ -462,8 +462,9 @@ class _PathRecorder:
         V = np.asarray(self._V[-n:])
         # J/kmol * kmol/(m3 s) = J/(m3 s): the kmol factors cancel in A q; A = -delta G
         sigma = -self._dg_buf[:n] * self._q_buf[:n] / T[:, None]
-        self.tracker.update(sigma)
-        self._sigma_total.append(sigma.sum(axis=1))
+        total = sigma.sum(axis=1)
+        self.tracker.update(sigma, total)
+        self._sigma_total.append(total)
         vs = sigma * V[:, None]
         if self._last is not None:
             t = np.concatenate([[self._last[0]], t])
