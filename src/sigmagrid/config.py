@@ -236,14 +236,14 @@ CASE_SETTINGS = ("stop", "solver", "reactor_volume", "storage", "sea")  # the SE
 
 
 def settings_hash(config: dict) -> str:
-    """sha256 of the settings that shape each case's result; equal hashes, reusable case files.
+    """sha256 of the settings of a validated config that shape each case's result; equal hashes,
+    reusable case files.
 
     ``storage.compression`` is left out: the codec changes how the file is packed, not one value
     in it, so a file written with another codec is still a valid result.
     """
     settings = {key: config.get(key) for key in CASE_SETTINGS}
-    if isinstance(settings.get("storage"), dict):
-        settings["storage"] = {k: v for k, v in settings["storage"].items() if k != "compression"}
+    settings["storage"] = {k: v for k, v in config["storage"].items() if k != "compression"}
     return config_hash(settings)
 
 

@@ -45,7 +45,7 @@ class RunSettings:
                                 volume=float(config["reactor_volume"])),
             max_samples=int(config["storage"]["max_samples"]),
             max_bytes=float(config["storage"]["max_bytes"]),
-            compression=str(config["storage"].get("compression", "zlib")),
+            compression=config["storage"]["compression"],
             sea=_sea_settings(config.get("sea", {})),
         )
 
