@@ -167,7 +167,8 @@ def evaluate(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
     (rows < nr) and of the products (rows >= nr). kind: 0 constant, 1 Arrhenius mobility.
 
     Returns (T K or -1 where no temperature meets the constraint, V m3, n mol, h/RT, cp/R,
-    x = A/RT, q mol m-3 s-1, mobility mol m-3 s-1, trace factor g, both sides' factors).
+    x = A/RT, q mol m-3 s-1, mobility mol m-3 s-1, trace factor g, both sides' factors, the
+    onsets, mu/RT of every species).
     """
     ns = n_full.size
     na = active.size
@@ -185,13 +186,13 @@ def evaluate(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
     g = np.ones(nr)
     sides = np.ones(2 * nr)
     onset = np.zeros(nr)
+    mu = np.zeros(ns)
     T = temperature(n, coef, reactor, T_guess, energy0, h_rt, s_r, cp_r)
     if T < 0:
-        return -1.0, 0.0, n, h_rt, cp_r, x, q, mob, g, sides, onset
+        return -1.0, 0.0, n, h_rt, cp_r, x, q, mob, g, sides, onset, mu
     V = volume if reactor == 0 else total * R * T / pressure
     P = total * R * T / V
     # mu_k / RT as Cantera's ideal gas: mole fractions clipped at 1e-300 in the logarithm
-    mu = np.empty(ns)
     lnp = np.log(P / p_ref)
     for k in range(ns):
         xk = n[k] / total
@@ -221,7 +222,7 @@ def evaluate(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
             onset[j] = a_j
             g[j] = both + ((gr if xj > 0 else gp) - both) * a_j
         q[j] = mob[j] * g[j] * xj
-    return T, V, n, h_rt, cp_r, x, q, mob, g, sides, onset
+    return T, V, n, h_rt, cp_r, x, q, mob, g, sides, onset, mu
 
 
 @numba.njit(cache=True)
@@ -229,7 +230,7 @@ def rhs(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_gues
         nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref, out):
     """dz/dt = V nu q / N (1/s) into ``out``; returns T (K), or -1 where no temperature meets the
     constraint. Arguments as :func:`evaluate`."""
-    T, V, n, h_rt, cp_r, x, q, mob, g, sides, onset = evaluate(
+    T, V, n, h_rt, cp_r, x, q, mob, g, sides, onset, mu = evaluate(
         z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
         nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref)
     if T < 0:
@@ -251,18 +252,30 @@ def jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
     """d(dz/dt)/dz into J (na x na), the terms of ``_System.jac`` for the constant and Arrhenius
     metrics; returns T (K), or -1. active_pos: index of each species among the active ones (-1 if
     not); nu_sum: sum of each reaction's net coefficients. Other arguments as :func:`evaluate`."""
-    T, V, n, h_rt, cp_r, x, q, mob, g, sides, onset = evaluate(
+    return _time_jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
+                          nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref,
+                          active_pos, nu_sum, J)[0]
+
+
+@numba.njit(cache=True)
+def _time_jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
+                   nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref,
+                   active_pos, nu_sum, J):
+    """:func:`jacobian`, returning with T (K, or -1) what the progress clock needs besides:
+    V (m3), n (mol), h/RT, mu/RT, x, q (mol m-3 s-1), dT/dz (K) and dz/dt (1/s)."""
+    T, V, n, h_rt, cp_r, x, q, mob, g, sides, onset, mu = evaluate(
         z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
         nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref)
+    dT = np.zeros(active.size)
+    f = np.zeros(active.size)
     if T < 0:
-        return -1.0
+        return -1.0, V, n, h_rt, mu, x, q, dT, f
     ns = n.size
     na = active.size
     total = 0.0
     for k in range(ns):
         total += n[k]
     # constraint derivatives dT/dz_i (K) and d ln V/dz_i (1), as _System._constraint_derivatives
-    dT = np.zeros(na)
     dlnv = np.zeros(na)
     if reactor != 2:
         c = 0.0
@@ -346,7 +359,129 @@ def jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
         n_i = n[active[i]]
         for k in range(na):
             J[i, k] = V * (J[i, k] + col_v[i] * dlnv[k] + col_t[i] * dT[k] + flux[i] * dlnv[k]) / n_i
-        J[i, i] -= V * flux[i] / n_i
+        f[i] = V * flux[i] / n_i
+        J[i, i] -= f[i]
+    return T, V, n, h_rt, mu, x, q, dT, f
+
+
+# ----------------------------------------------------------------------------------------------
+# The progress clock. A metric's own time scale is arbitrary (an onsager path of methane takes
+# ages longer than the kinetics), so the paths are integrated in s = -ln(1 - lambda) instead of
+# time: dz/ds = tau dz/dt with tau = (Phi_eq - Phi)/(dPhi/dt) (s), the entropy still to be
+# produced over the rate it is produced at. Far from equilibrium s ~ lambda; near it the path
+# relaxes along its slowest mode, Phi_eq - Phi ~ exp(-2 k t), so s ~ 2 k t and dz/ds stays smooth.
+# Time is recovered as the integral of tau ds.
+
+
+@numba.njit(cache=True)
+def potential(n, h_rt, mu, reactor):
+    """Phi (J/K) of amounts n (mol): S = R sum n (h/RT - mu/RT) in the adiabatic reactors (the
+    ideal-gas entropy of ``settle``), S - H/T = -R sum n mu/RT in the isothermal one."""
+    phi = 0.0
+    for k in range(n.size):
+        phi += n[k] * (-mu[k] if reactor == 2 else h_rt[k] - mu[k])
+    return R * phi
+
+
+@numba.njit(cache=True)
+def entropy_rate(V, x, q):
+    """dPhi/dt = V sum_j A_j q_j / T = R V sum_j x_j q_j (W/K)."""
+    s = 0.0
+    for j in range(x.size):
+        s += x[j] * q[j]
+    return R * V * s
+
+
+@numba.njit(cache=True)
+def clock_rhs(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
+              nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref, phi_eq, out):
+    """dz/ds = tau dz/dt into ``out``; returns (T K, tau s), T = -1 where the state has no value
+    (no temperature meets the constraint, or no entropy left to produce or none produced)."""
+    T, V, n, h_rt, cp_r, x, q, mob, g, sides, onset, mu = evaluate(
+        z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
+        nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref)
+    if T < 0:
+        return -1.0, 0.0
+    deficit = phi_eq - potential(n, h_rt, mu, reactor)
+    rate = entropy_rate(V, x, q)
+    if not (deficit > 0.0 and rate > 0.0):
+        return -1.0, 0.0
+    tau = deficit / rate
+    flux = np.zeros(n.size)
+    for j in range(nr):
+        for p in range(nu_ptr[j], nu_ptr[j + 1]):
+            flux[nu_species[p]] += nu_coef[p] * q[j]
+    for i in range(active.size):
+        k = active[i]
+        out[i] = tau * V * flux[k] / n[k]
+    return T, tau
+
+
+@numba.njit(cache=True)
+def clock_transform(f, J, n, w, h_rt, dT, T, n_total, reactor, deficit, rate, JF):
+    """Jacobian of dz/ds = tau f from the time Jacobian J = df/dz, into JF; returns tau (s).
+
+    f : (na,) dz/dt (1/s); n, w, h_rt : (na,) amounts (mol), n mu/RT (mol) and h/RT of the
+    active species; dT : (na,) dT/dz (K); deficit = Phi_eq - Phi (J/K); rate = dPhi/dt (W/K).
+    With grad Phi = -R w (dPhi/dN_k = -mu_k/T on every reactor's constraint, N_k d/dN_k = d/dz_k),
+    rate = grad Phi . f, so grad rate = -R (Hess f + J^T w), where (Hess f)_k = sum_i f_i d w_i/dz_k
+    on the constraint: w_k f_k + n_k f_k, plus (1 - h_i) dT_k/T terms at fixed volume and
+    -n_k/N and -h_i dT_k/T terms at fixed pressure (d ln P, d ln X and d(g/RT)/dT = -h/(RT^2)).
+    Then JF = tau J + f grad(tau)^T with grad tau = (R w - tau grad rate)/rate.
+    """
+    na = f.size
+    tau = deficit / rate
+    s_n = 0.0  # sum n f
+    s_h = 0.0  # sum n f h/RT
+    for i in range(na):
+        s_n += n[i] * f[i]
+        s_h += n[i] * f[i] * h_rt[i]
+    grad = np.empty(na)
+    for k in range(na):
+        hess = (w[k] + n[k]) * f[k]
+        if reactor == 0:
+            hess += (s_n - s_h) * dT[k] / T
+        else:
+            hess += -s_n * n[k] / n_total - s_h * dT[k] / T
+        wj = 0.0
+        for i in range(na):
+            wj += w[i] * J[i, k]
+        grad_rate = -R * (hess + wj)
+        grad[k] = (R * w[k] - tau * grad_rate) / rate
+    for i in range(na):
+        for k in range(na):
+            JF[i, k] = tau * J[i, k] + f[i] * grad[k]
+    return tau
+
+
+@numba.njit(cache=True)
+def clock_jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
+                   nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref,
+                   active_pos, nu_sum, phi_eq, J):
+    """d(dz/ds)/dz into J (see :func:`clock_transform`); returns T (K), or -1."""
+    na = active.size
+    Jt = np.empty((na, na))
+    T, V, n, h_rt, mu, x, q, dT, f = _time_jacobian(
+        z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
+        nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref, active_pos, nu_sum, Jt)
+    if T < 0:
+        return -1.0
+    deficit = phi_eq - potential(n, h_rt, mu, reactor)
+    rate = entropy_rate(V, x, q)
+    if not (deficit > 0.0 and rate > 0.0):
+        return -1.0
+    total = 0.0
+    for k in range(n.size):
+        total += n[k]
+    na_n = np.empty(na)
+    w = np.empty(na)
+    h_a = np.empty(na)
+    for i in range(na):
+        k = active[i]
+        na_n[i] = n[k]
+        w[i] = n[k] * mu[k]
+        h_a[i] = h_rt[k]
+    clock_transform(f, Jt, na_n, w, h_a, dT, T, total, reactor, deficit, rate, J)
     return T
 
 
@@ -374,20 +509,23 @@ STEP_FAILED = 5  # a step's state could not be projected onto the element totals
 
 # indices into the integer and float state arrays of ``bdf_path``
 I_ORDER, I_EQUAL, I_HARD, I_LU, I_NJEV, I_SEEN, I_RETRIES, I_RHS, I_JAC, I_STEPS, I_HAVE_LAST = range(11)
-F_T, F_TOLD, F_H, F_TGUESS, F_PHI, F_UERR, F_RAW, F_DROP = range(8)
+F_T, F_TOLD, F_H, F_TGUESS, F_PHI, F_UERR, F_RAW, F_DROP, F_PHI_EQ, F_TAU = range(10)
+N_FLOAT_STATE = 10
 
 
 @numba.njit(cache=True)
 def _rhs(z, H, L, fs, out):
-    """rhs() with the kernel arguments packed: H the head, L the tail of ``CompiledRates``; the
-    temperature guess in fs[F_TGUESS] is updated. False where the state has no value."""
+    """clock_rhs() with the kernel arguments packed: H the head, L the tail of ``CompiledRates``;
+    the temperature guess in fs[F_TGUESS] and tau in fs[F_TAU] are updated. False where the state
+    has no value."""
     if not z.max() < 50.0:  # as dynamics._System.amounts: a trial state far off
         return False
-    T = rhs(z, H[0], H[1], H[2], H[3], H[4], H[5], H[6], H[7], fs[F_TGUESS], L[0], L[1], L[2], L[3], L[4],
-            L[5], L[6], L[7], L[8], L[9], L[10], L[11], out)
+    T, tau = clock_rhs(z, H[0], H[1], H[2], H[3], H[4], H[5], H[6], H[7], fs[F_TGUESS], L[0], L[1], L[2], L[3],
+                       L[4], L[5], L[6], L[7], L[8], L[9], L[10], L[11], fs[F_PHI_EQ], out)
     if not T > 0:
         return False
     fs[F_TGUESS] = T
+    fs[F_TAU] = tau
     for i in range(out.size):
         if not np.isfinite(out[i]):
             return False
@@ -398,8 +536,8 @@ def _rhs(z, H, L, fs, out):
 def _jac(z, H, L, active_pos, nu_sum, fs, J):
     if not z.max() < 50.0:
         return False
-    T = jacobian(z, H[0], H[1], H[2], H[3], H[4], H[5], H[6], H[7], fs[F_TGUESS], L[0], L[1], L[2], L[3], L[4],
-                 L[5], L[6], L[7], L[8], L[9], L[10], L[11], active_pos, nu_sum, J)
+    T = clock_jacobian(z, H[0], H[1], H[2], H[3], H[4], H[5], H[6], H[7], fs[F_TGUESS], L[0], L[1], L[2], L[3],
+                       L[4], L[5], L[6], L[7], L[8], L[9], L[10], L[11], active_pos, nu_sum, fs[F_PHI_EQ], J)
     if not T > 0:
         return False
     fs[F_TGUESS] = T
@@ -652,11 +790,12 @@ def bdf_start(z, H, L, active_pos, nu_sum, rtol, atol, fs, istate, D, J, yv):
 def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale, alpha, gamma, error_const,
              rtol, atol, newton_tol, lam_start, phi_start, drive, lam_stop, offset, t_end, max_steps, u0,
              drop_tol, drop_retries, hard_steps, max_iter, max_log_step, global_newton, fresh_jacobian, still_start,
-             fs, istate, D, yv, J, LU, piv, rec_t, rec_told, rec_h, rec_order, rec_D, rec_lam):
+             fs, istate, D, yv, J, LU, piv, rec_t, rec_told, rec_h, rec_order, rec_D, rec_lam, rec_tau):
     """Steps of one SEA path until a stop (the codes STEP_*), at most rec_t.size accepted steps per
-    call. The state (fs, istate, D, yv, J, LU, piv) carries over between calls; each accepted step
-    is recorded (clock time, its start, BDF's step and order and differences, the progress) for
-    the dense output. ``dynamics._sea_path`` documents the choices; this mirrors it line by line."""
+    call. The clock is s = -ln(1 - lambda) from the start (see :func:`clock_rhs`). The state (fs,
+    istate, D, yv, J, LU, piv) carries over between calls; each accepted step is recorded (clock,
+    its start, BDF's step and order and differences, the progress, tau s) for the dense output
+    and the time. ``dynamics._sea_path`` documents the choices; this mirrors it line by line."""
     n = yv.size
     active = H[1]
     n_full = H[0]
@@ -863,6 +1002,10 @@ def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale
             if _jac(yv, H, L, active_pos, nu_sum, fs, J):
                 istate[I_JAC] += 1
                 istate[I_LU] = 0
+        # tau at the accepted (projected) state, for the time: dt = tau ds
+        istate[I_RHS] += 1
+        if not _rhs(yv, H, L, fs, work):
+            return STEP_FAILED, nrec
         fs[F_UERR] = max(fs[F_UERR], abs(props[2] - u0) / max(abs(u0), 1e-300))
         fs[F_RAW] = max(fs[F_RAW], raw)
         fs[F_DROP] = max(fs[F_DROP], (fs[F_PHI] - phi) / drive)
@@ -874,6 +1017,7 @@ def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale
         rec_order[nrec] = order
         rec_D[nrec, :order + 1] = D[:order + 1]
         rec_lam[nrec] = lam
+        rec_tau[nrec] = fs[F_TAU]
         nrec += 1
         if lam >= lam_stop:
             return STEP_DONE, nrec

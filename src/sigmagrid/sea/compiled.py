@@ -87,15 +87,21 @@ def _compile():
     # the path loop, with the argument types dynamics._run_compiled gives it (numba compiles per type)
     head = (one_f.copy(), one_i, 1.0, coef, 101325.0, 2, 0.0, 101325.0)
     tail = (0.0, np.zeros(2, np.int64), one_i, one_f, one_i, one_i, 1, 0.0, 0, np.zeros(1), np.zeros(1), 1.0)
-    fs, istate = np.zeros(8), np.zeros(11, np.int64)
+    fs, istate = np.zeros(_kernels.N_FLOAT_STATE), np.zeros(11, np.int64)
     D, y, J, LU, piv = np.zeros((8, 1)), np.zeros(1), np.zeros((1, 1)), np.zeros((1, 1)), np.zeros(1, np.int64)
     fs[_kernels.F_TGUESS] = 300.0
     _kernels.bdf_start(np.zeros(1), head, tail, one_i, np.zeros(1), 1e-5, 1e-7, fs, istate, D, J, y)
     coefficients = np.ones(6)
+    fs[_kernels.F_H] = 1e-3  # the dummy has no entropy production, so bdf_start left no step
     _kernels.bdf_path(head, tail, one_i, np.zeros(1), np.ones((1, 1)), one_f, np.ones((1, 1)), one_f, one_f,
                       coefficients, coefficients, coefficients, 1e-5, 1e-7, 0.03, 0.0, 0.0, 1.0, 0.0, 0.0, 1.0, 1,
                       0.0, 1e-5, 8, 10, 10, 1.0, True, True, 30.0, fs, istate, D, y, J, LU, piv, np.empty(1), np.empty(1),
-                      np.empty(1), np.empty(1, np.int64), np.empty((1, 6, 1)), np.empty(1))
+                      np.empty(1), np.empty(1, np.int64), np.empty((1, 6, 1)), np.empty(1), np.empty(1))
+    # the progress clock as the Python route calls it
+    _kernels.clock_rhs(np.zeros(1), *head, 300.0, *tail, 1.0, np.empty(1))
+    _kernels.clock_jacobian(np.zeros(1), *head, 300.0, *tail, one_i, np.zeros(1), 1.0, np.empty((1, 1)))
+    _kernels.clock_transform(one_f, np.ones((1, 1)), one_f, one_f, one_f, one_f, 300.0, 1.0, 0, 1.0, 1.0,
+                             np.empty((1, 1)))
     return _kernels
 
 
@@ -151,6 +157,20 @@ class CompiledRates:
         out = np.empty(z.size)
         T = self.kernels.rhs(z, *self._head, float(T_guess), *self._tail_at(eps), out)
         return out, T
+
+    def clock(self, z, T_guess, eps, phi_eq):
+        """(dz/ds, T, tau s) on the progress clock (``_kernels.clock_rhs``); T < 0 where the state
+        has no value."""
+        out = np.empty(z.size)
+        T, tau = self.kernels.clock_rhs(z, *self._head, float(T_guess), *self._tail_at(eps), float(phi_eq), out)
+        return out, T, tau
+
+    def clock_jacobian(self, z, T_guess, eps, phi_eq):
+        """(d(dz/ds)/dz, T); T < 0 where the state has no value."""
+        J = np.empty((z.size, z.size))
+        T = self.kernels.clock_jacobian(z, *self._head, float(T_guess), *self._tail_at(eps), self._active_pos,
+                                        self._nu_sum, float(phi_eq), J)
+        return J, T
 
     def path_args(self, eps):
         """(head, tail, active_pos, nu_sum): the arguments of the compiled path loop

@@ -19,6 +19,8 @@ from scipy.integrate._ivp import bdf as _bdf
 from scipy.linalg import lapack
 
 from ..units import GAS_CONSTANT, KMOL, PER_KMOL
+from . import compiled
+from .metrics import log_mean_mobility
 
 _R = GAS_CONSTANT  # J/(mol K)
 
@@ -49,8 +51,10 @@ _FRESH_JACOBIAN = True
 #: unchanged (always starting from the last state made them 25 % dearer); 0 gives scipy's rule.
 _STILL_START = 30.0
 
-#: restarts of one SEA path's integration when its clock runs out of resolution (see ``_sea_path``)
-_RESTARTS = 50
+#: a path stops as stalled once its clock s = -ln(1 - lambda) has run this far past the stop
+#: progress's without the potential getting there: e^-10 of the distance left, so the path is
+#: approaching an equilibrium of its own metric short of the true one (see ``_sea_path``)
+_STALL_MARGIN = 10.0
 
 #: an accepted step whose potential falls by more than this share of the drive is taken again at
 #: half the step, at most ``_DROP_RETRIES`` times (see ``_sea_path``)
@@ -70,6 +74,15 @@ def _onset_slope(u, a):
     """d/du of a(u) = exp(-1/u) (see :func:`_onsets`), given its value a."""
     pos = u > 0
     return np.where(pos, a / np.where(pos, u, 1.0) ** 2, 0.0)
+
+
+def _clock_transform():
+    """``_kernels.clock_transform``, compiled where numba can, else its plain Python."""
+    kernels = compiled.kernel()
+    if kernels is not None:
+        return kernels.clock_transform
+    from . import _kernels
+    return _kernels.clock_transform.py_func
 
 
 class _WeightedProduct:
@@ -158,13 +171,14 @@ class _System:
         self._nr_in = len(reactions)
         self.eps = trace_level * self.n_ref  # mol
         self._cache = None  # species energies and heat capacities at the last temperature
+        self.phi_eq = float("nan")  # J/K, the potential the progress clock runs towards (set by _sea_path)
+        self.tau = float("nan")  # s, (Phi_eq - Phi)/(dPhi/dt) at the last clock_rhs state
         self.n_rhs = 0
         self.n_jac = 0
         self._set(n_start, newton=False)
         self.energy0 = self._energy_sum(n_start)  # J, U or H from the species properties
         self._compiled = None
         if mobility.kind != "log-mean" and _USE_COMPILED:
-            from . import compiled
             table = compiled.nasa7_table(gas)
             if table is not None and compiled.kernel() is not None:
                 self._compiled = compiled.CompiledRates(
@@ -264,10 +278,12 @@ class _System:
         """Net rates q (mol m-3 s-1) of the SEA dynamics, reverse one-way rates, mobility."""
         mob = self.mob
         if mob.kind == "log-mean":
+            # the gradient form formed from the path's own state: Lambda of its one-way rates,
+            # x of its thermodynamics, q = Lambda x (Mielke 2011). It equals mass action's net
+            # rate only where the reverse rate obeys detailed balance, which is what this path checks.
             rr = np.where(self.reversible_in, self.gas.reverse_rates_of_progress[self.rx] * KMOL,
                           rf * np.exp(np.clip(-x, -745.0, 700.0)))
-            q = np.where(self.reversible_in, self.gas.net_rates_of_progress[self.rx] * KMOL, rf - rr)
-            return q, rr, None
+            return log_mean_mobility(rf, rr, x) * x, rr, None
         m = mob.m if mob.kind == "constant" else mob.m * np.exp(-mob.b * (1.0 / T - 1.0 / mob.t_ref))
         if self.eps > 0:
             # g = g_r g_p + g_r (1 - g_p) a(x) + g_p (1 - g_r) a(-x), of which one a is zero
@@ -316,6 +332,57 @@ class _System:
         x, rf = self._kinetics(T)
         q, _, _ = self._rates(T, x, rf)
         return V * (self.nu_a @ q) / n[self.active]
+
+    def clock_rhs(self, s, z):
+        """dz/ds on the progress clock s = -ln(1 - lambda): tau dz/dt with tau = (Phi_eq - Phi)/(dPhi/dt)
+        (s, left in ``self.tau``); NaN where the state has no value (see ``_kernels.clock_rhs``)."""
+        self.n_rhs += 1
+        if self._compiled is not None:
+            if not z.max() < 50.0:
+                return np.full(z.size, np.nan)
+            out, T, tau = self._compiled.clock(z, self.temperature, self.eps, self.phi_eq)
+            if not T > 0:
+                return np.full(z.size, np.nan)
+            self.temperature, self.tau = T, tau
+            return out
+        try:
+            n, T, V = self.state(z)
+        except (_OffConstraint, ct.CanteraError):
+            return np.full(z.size, np.nan)
+        x, rf = self._kinetics(T)
+        q, _, _ = self._rates(T, x, rf)
+        deficit, rate = self.phi_eq - self.potential(), _R * V * float(x @ q)
+        if not (deficit > 0 and rate > 0):
+            return np.full(z.size, np.nan)
+        self.tau = deficit / rate
+        return self.tau * V * (self.nu_a @ q) / n[self.active]
+
+    def clock_jac(self, s, z):
+        """d(dz/ds)/dz from the time Jacobian (``_kernels.clock_transform``)."""
+        if self._compiled is not None:
+            self.n_jac += 1
+            if not z.max() < 50.0:
+                raise _OffConstraint("amounts out of range")
+            J, T = self._compiled.clock_jacobian(z, self.temperature, self.eps, self.phi_eq)
+            if not T > 0:
+                raise _OffConstraint("no value of the progress clock here")
+            self.temperature = T
+            return J
+        J = self.jac(s, z)
+        n, T, V = self.state(z)
+        x, rf = self._kinetics(T)
+        q, _, _ = self._rates(T, x, rf)
+        deficit, rate = self.phi_eq - self.potential(), _R * V * float(x @ q)
+        if not (deficit > 0 and rate > 0):
+            raise _OffConstraint("no value of the progress clock here")
+        g = self.gas
+        na = n[self.active]
+        dT, _ = self._constraint_derivatives(n, T, V)
+        w = na * g.chemical_potentials[self.active] * PER_KMOL / (_R * T)
+        out = np.empty_like(J)
+        _clock_transform()(V * (self.nu_a @ q) / na, J, na, w, g.standard_enthalpies_RT[self.active], dT, T,
+                           float(n.sum()), compiled.REACTOR_CODES[self.reactor], deficit, rate, out)
+        return out
 
     def _constraint_derivatives(self, n, T, V):
         """dT/dz_i (K) and d ln V/dz_i (1) for the active species."""
@@ -603,7 +670,7 @@ class _GlobalNewton:
         self.last_jac = None
         y = y_predict.copy()
         d = np.zeros_like(y)
-        f = system.rhs(t, y)
+        f = system.clock_rhs(t, y)
         if not np.all(np.isfinite(f)):
             return None
         r = c * f - psi - d
@@ -611,7 +678,7 @@ class _GlobalNewton:
         eye = np.eye(y.size)
         for k in range(self.max_iter):
             try:
-                J = system.jac(t, y)
+                J = system.clock_jac(t, y)
             except (_OffConstraint, ct.CanteraError):
                 return None
             self.last_jac = J
@@ -625,7 +692,7 @@ class _GlobalNewton:
             alpha = min(1.0, self.max_log_step / big) if big > 0 else 1.0
             while True:
                 y_try = y + alpha * dy
-                f_try = system.rhs(t, y_try)
+                f_try = system.clock_rhs(t, y_try)
                 if np.all(np.isfinite(f_try)):
                     d_try = d + alpha * dy
                     r_try = c * f_try - psi - d_try
@@ -668,25 +735,26 @@ class _Balance:
     E_target: np.ndarray
 
 
-def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements, settings, t_scale):
+def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements, settings):
     """Integrate one SEA path and sample it at the progress grid (NaN where it is not reached).
 
     The SEA progress is lambda_start + (1 - lambda_start)(Phi - Phi_start)/(Phi_eq - Phi_start), with
     Phi_eq the equilibrium of the start state's own energy and elements, so the path ends at 1 even
-    where the observed path's held energy drifted. Stops at ``end_progress``, at the time limit,
-    or at the step or wall budget (status and reason say which).
+    where the observed path's held energy drifted. Stops at ``end_progress``, where it stalls, or
+    at the step or wall budget (status and reason say which).
 
-    A metric's own clock can be ages slower than the kinetics' (an onsager path whose fuel
-    reactions have tiny equilibrium rates takes 1e7 times the observed relaxation), with fast
-    events late on. When the step the solver needs falls below the resolution of its clock, the
-    integration is restarted from the last accepted state with its clock at zero (the time then
-    runs on as an offset), at most ``_RESTARTS`` times.
+    The clock is s = -ln(1 - lambda), not time: a metric's own time scale is arbitrary (an onsager
+    path whose fuel reactions have tiny equilibrium one-way rates takes ages longer than the
+    kinetics, with fast events late on), while s advances with the entropy produced. The time is
+    recovered as the integral of tau ds over the accepted steps (tau = dt/ds), exact for tau
+    exponential in s between steps. A path whose potential stops short of Phi_eq (an equilibrium of
+    its metric's own, where some mobility vanishes) runs its clock on without progress and stops
+    ``incomplete`` once s has passed the stop progress's by ``_STALL_MARGIN``.
 
     An accepted step whose potential falls by more than ``_DROP_TOLERANCE`` of the drive is
     undone and taken again at half the size (at most ``_DROP_RETRIES`` times in a row): the full
     Newton iteration of ``_GlobalNewton`` can converge, on a large step, to a solution of BDF's
-    equations that lowers the entropy (one step of the onsager path of methane in the tests fell
-    by 4.2e-4 of the drive; with the guard the largest fall was 1.2e-6).
+    equations that lowers the entropy.
     """
     started = _time.perf_counter()
     ng, ns = grid.size, system.gas.n_species
@@ -726,12 +794,19 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
     system.state(z0)
     u0 = system.held_energy()
     phi_start_path = system.potential()
-    t_end = settings.time_factor * t_scale
+    system.phi_eq = phi_eq
     rhs_before, jac_before = system.n_rhs, system.n_jac
+    if not np.isfinite(system.clock_rhs(0.0, z0)).all():
+        return _Path("failed", "no entropy production at the SEA start state under this metric",
+                     times, temps, xs, np.nan, np.nan, np.nan, np.nan, 0, _time.perf_counter() - started)
+    tau0 = system.tau
+    # the clock from the start: s - s_start; a path still short of the stop progress this far on stalls
+    s_limit = np.log1p(-lam_start) - np.log1p(-lam_stop) + _STALL_MARGIN
     run = _run_compiled if (compiled is not None and _COMPILED_STEPPER) else _run_scipy
-    status, reason, ts, lams, dens, steps, u_err, raw_err, worst_drop = run(
-        system, z0, lam_of, phi_start_path, settings, rtol, atol, t_end, started, project_state, u0,
+    status, reason, ts, lams, taus, dens, steps, u_err, raw_err, worst_drop = run(
+        system, z0, lam_of, phi_start_path, settings, rtol, atol, s_limit, started, project_state, u0,
         _Balance(elements, target, e_scale, E_active, project.target))
+    elapsed = _elapsed_time(np.asarray(ts), np.concatenate([[tau0], np.asarray(taus, float)]))
     e_err = 0.0
 
     ts_a, lams_a = np.asarray(ts), np.maximum.accumulate(np.asarray(lams))
@@ -762,34 +837,44 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
         if i > 0 and np.isfinite(phi_grid_prev):
             grid_drop = max(grid_drop, (phi_grid_prev - phi) / drive)
         phi_grid_prev = phi
-        times[i], temps[i] = t, T
+        times[i], temps[i] = np.interp(t, ts_a, elapsed), T
         xs[i] = n / n.sum()
     return _Path(status, reason, times, temps, xs, e_err, raw_err, u_err, max(worst_drop, grid_drop, 0.0), steps,
                  _time.perf_counter() - started, rhs_evaluations=system.n_rhs - rhs_before,
                  jacobian_evaluations=system.n_jac - jac_before)
 
 
-def _run_scipy(system, z0, lam_of, phi_start, settings, rtol, atol, t_end, started, project_state, u0, balance):
-    """The steps of one SEA path through scipy's BDF with ``_GlobalNewton`` (the log-mean metric, and
-    the others where the compiled route cannot run). Returns (status, reason, clock times s,
-    progress, dense outputs as (clock offset s, interpolant), steps, largest energy error, largest
-    element drift before projection, largest entropy decrease)."""
+def _elapsed_time(clock: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    """Time (s) at each accepted step of a path on the progress clock: the integral of tau ds,
+    with tau = dt/ds (s) taken exponential in s between steps (the log-mean rule, exact where the
+    path relaxes at one rate, and never below the smaller or above the larger end value)."""
+    ds = np.diff(clock)
+    a, b = tau[:-1], tau[1:]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.log(b / a)
+        mean = np.where(np.abs(ratio) > 1e-8, (b - a) / ratio, 0.5 * (a + b))
+    return np.concatenate([[0.0], np.cumsum(ds * mean)])
+
+
+def _run_scipy(system, z0, lam_of, phi_start, settings, rtol, atol, s_limit, started, project_state, u0, balance):
+    """The steps of one SEA path on the progress clock through scipy's BDF with ``_GlobalNewton``
+    (the log-mean metric, and the others where the compiled route cannot run). Returns (status,
+    reason, clock s, progress, tau s of each accepted step, dense outputs as (clock offset,
+    interpolant), steps, largest energy error, largest element drift before projection, largest
+    entropy decrease)."""
     log_mean = system.mob.kind == "log-mean"
     lam_stop = settings.end_progress
     status, reason = "ok", ""
     raw_err = u_err = 0.0
     worst_drop = 0.0
     phi_prev = phi_start
-    ts, lams, dens = [0.0], [lam_of(phi_prev)], []  # dens: (clock offset s, dense output)
+    ts, lams, taus, dens = [0.0], [lam_of(phi_prev)], [], []  # dens: (clock offset, dense output)
     newton = _GlobalNewton(system)
-
-    def start(z, offset):
-        newton.solver = _lean_lu(BDF(system.rhs, 0.0, z, t_bound=np.inf, rtol=rtol, atol=atol, jac=system.jac))
-        return newton.solver, offset
-
-    solver, offset, restarts, retries = None, 0.0, 0, 0
+    retries = 0
     try:
-        solver, offset = start(z0, 0.0)
+        solver = _lean_lu(BDF(system.clock_rhs, 0.0, z0, t_bound=np.inf, rtol=rtol, atol=atol,
+                              jac=system.clock_jac))
+        newton.solver = solver
         steps = 0
         while True:
             newton.last_jac = None
@@ -798,12 +883,7 @@ def _run_scipy(system, z0, lam_of, phi_start, settings, rtol, atol, t_end, start
                 msg = solver.step()
             steps += 1
             if solver.status == "failed":
-                if restarts < _RESTARTS and "spacing between numbers" in str(msg) and solver.t > 0:
-                    restarts += 1
-                    solver, offset = start(solver.y.copy(), offset + solver.t)
-                    continue
-                status, reason = "failed", (f"BDF at t = {offset + solver.t:.4g} s, progress {lams[-1]:.6g} "
-                                            f"({restarts} restarts): {msg}")
+                status, reason = _stalled_or_failed(lams[-1], solver.t, str(msg))
                 break
             # project the accepted step back onto the element constraints and hand it to the
             # solver (its whole history shifts with it, see _replace_state), so drift cannot pile up
@@ -824,39 +904,42 @@ def _run_scipy(system, z0, lam_of, phi_start, settings, rtol, atol, t_end, start
             elif _FRESH_JACOBIAN and not log_mean:
                 # BDF keeps a Jacobian until its Newton iteration fails; with an old one the
                 # iteration stops on small corrections while the residual still holds stiff
-                # components, which break the element balance (1e-5 a step on the onsager path)
-                # and cost the projection above a kick. A Jacobian costs 30-100 us: cheaper than
-                # the steps it saves (onsager 8274 -> 5334, fitted 1051-1277 -> 1000-1165)
+                # components, which break the element balance and cost the projection a kick
                 try:
-                    solver.J = system.jac(solver.t, z_p)
+                    solver.J = system.clock_jac(solver.t, z_p)
                     solver.LU = None
                 except (_OffConstraint, ct.CanteraError):
                     pass  # BDF keeps its last Jacobian
+            if not np.isfinite(system.clock_rhs(solver.t, z_p)).all():  # tau at the accepted state
+                status, reason = _stalled_or_failed(lams[-1], solver.t, "no entropy production left")
+                break
             u_err = max(u_err, abs(energy - u0) / max(abs(u0), 1e-300))
             raw_err = max(raw_err, raw)
             worst_drop = max(worst_drop, (phi_prev - phi) / lam_of.drive)
             phi_prev = phi
-            ts.append(offset + solver.t)
+            ts.append(solver.t)
             lams.append(lam_of(phi))
-            dens.append((offset, solver.dense_output()))
-            status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, t_end, settings)
+            taus.append(system.tau)
+            dens.append((0.0, solver.dense_output()))
+            status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, s_limit, settings)
             if status is not None:
                 break
         status = status or "ok"
     except Exception as err:  # Cantera or linear-algebra failure: record, do not raise
         status, reason = "failed", f"{type(err).__name__}: {str(err).splitlines()[0][:300] if str(err) else ''}"
         steps = len(ts) - 1
-    return status, reason, ts, lams, dens, steps, u_err, raw_err, worst_drop
+    return status, reason, ts, lams, taus, dens, steps, u_err, raw_err, worst_drop
 
 
 #: accepted steps per call of the compiled loop; between calls Python checks the wall budget
 _CHUNK = 256
 
 
-def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, t_end, started, project_state, u0, balance):
+def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, s_limit, started, project_state, u0,
+                  balance):
     """The steps of one SEA path in the compiled loop (``_kernels.bdf_path``): the same BDF, Newton
-    iterations, projection, entropy guard and clock restarts as :func:`_run_scipy`, without its
-    Python cost per step (about 0.25 ms). Returns what :func:`_run_scipy` returns.
+    iterations, projection and entropy guard as :func:`_run_scipy`, without its Python cost per
+    step (about 0.25 ms). Returns what :func:`_run_scipy` returns.
 
     Two differences: the wall budget is checked every ``_CHUNK`` accepted steps, and a state the
     compiled projection cannot settle (no temperature, a singular element system), after the
@@ -871,9 +954,10 @@ def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, t_end, st
     alpha = (1 - kappa) * gamma
     error_const = kappa * gamma + 1 / np.arange(1, max_order + 2)
     newton_tol = max(10 * np.finfo(float).eps / rtol, min(0.03, rtol ** 0.5))
-    fs = np.zeros(8)
+    fs = np.zeros(k.N_FLOAT_STATE)
     fs[k.F_TGUESS] = system.temperature
     fs[k.F_PHI] = phi_start
+    fs[k.F_PHI_EQ] = system.phi_eq
     istate = np.zeros(11, np.int64)
     D = np.zeros((max_order + 3, na))
     yv = np.empty(na)
@@ -881,52 +965,57 @@ def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, t_end, st
     LU = np.empty((na, na))
     piv = np.empty(na, np.int64)
     rec = (np.empty(_CHUNK), np.empty(_CHUNK), np.empty(_CHUNK), np.empty(_CHUNK, np.int64),
-           np.empty((_CHUNK, max_order + 1, na)), np.empty(_CHUNK))
+           np.empty((_CHUNK, max_order + 1, na)), np.empty(_CHUNK), np.empty(_CHUNK))
     elements = np.ascontiguousarray(balance.elements, float)
-    ts, lams, dens = [0.0], [lam_of(phi_start)], []
-    status, reason, offset, restarts = None, "", 0.0, 0
+    ts, lams, taus, dens = [0.0], [lam_of(phi_start)], [], []
+    status, reason = None, ""
     lam_stop = settings.end_progress
     if not k.bdf_start(z0, H, L, active_pos, nu_sum, rtol, atol, fs, istate, D, J, yv):
-        return ("failed", "no right-hand side or Jacobian at the SEA start state", ts, lams, dens, 0, 0.0, 0.0, 0.0)
+        return ("failed", "no right-hand side or Jacobian at the SEA start state", ts, lams, taus, dens, 0, 0.0, 0.0,
+                0.0)
     while status is None:
         code, nrec = k.bdf_path(
             H, L, active_pos, nu_sum, balance.E_active, balance.E_target, elements, balance.target, balance.e_scale,
             alpha, gamma, error_const, rtol, atol, newton_tol, lam_of.start, lam_of.phi_start, lam_of.drive,
-            lam_stop, offset, t_end, settings.max_steps, u0,
+            lam_stop, 0.0, s_limit, settings.max_steps, u0,
             _DROP_TOLERANCE, _DROP_RETRIES, _HARD_STEPS, _FULL_NEWTON_ITERATIONS, _MAX_LOG_STEP, _GLOBAL_NEWTON,
             _FRESH_JACOBIAN, _STILL_START,
             fs, istate, D, yv, J, LU, piv, *rec)
         for i in range(nrec):
             order = int(rec[3][i])
-            ts.append(offset + float(rec[0][i]))
+            ts.append(float(rec[0][i]))
             lams.append(float(rec[5][i]))
-            dens.append((offset, (float(rec[1][i]), float(rec[0][i]), float(rec[2][i]), order,
-                                  rec[4][i, :order + 1].copy())))
+            taus.append(float(rec[6][i]))
+            dens.append((0.0, (float(rec[1][i]), float(rec[0][i]), float(rec[2][i]), order,
+                               rec[4][i, :order + 1].copy())))
         steps = int(istate[k.I_STEPS])
         if code == k.STEP_TOO_SMALL:
-            if restarts < _RESTARTS and fs[k.F_T] > 0:
-                restarts += 1
-                offset += float(fs[k.F_T])
-                if k.bdf_start(yv.copy(), H, L, active_pos, nu_sum, rtol, atol, fs, istate, D, J, yv):
-                    continue
-            status, reason = "failed", (f"BDF at t = {offset + fs[k.F_T]:.4g} s, progress {lams[-1]:.6g} "
-                                        f"({restarts} restarts): Required step size is less than spacing between "
-                                        "numbers.")
+            status, reason = _stalled_or_failed(lams[-1], fs[k.F_T], "Required step size is less than spacing "
+                                                "between numbers.")
         elif code == k.STEP_FAILED:
-            status, reason = "failed", (f"at t = {offset + fs[k.F_T]:.4g} s, progress {lams[-1]:.6g}: a step's "
-                                        "state could not be projected onto the element totals")
-        elif code == k.STEP_CHUNK:  # the kernel checks progress, time and steps itself: the wall budget here
+            status, reason = "failed", (f"at progress {lams[-1]:.6g}: a step's state could not be projected onto "
+                                        "the element totals")
+        elif code == k.STEP_CHUNK:  # the kernel checks progress, clock and steps itself: the wall budget here
             if _time.perf_counter() - started > settings.max_wall_seconds:
                 status, reason = "budget", (f"wall budget {settings.max_wall_seconds:g} s used at progress "
                                             f"{lams[-1]:.6g}")
         else:
-            status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, t_end, settings)
+            status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, s_limit, settings)
     system.n_rhs += int(istate[k.I_RHS])
     system.n_jac += int(istate[k.I_JAC])
     system.temperature = float(fs[k.F_TGUESS])
 
-    return (status, reason, ts, lams, _LazyDense(dens), steps, float(fs[k.F_UERR]), float(fs[k.F_RAW]),
+    return (status, reason, ts, lams, taus, _LazyDense(dens), steps, float(fs[k.F_UERR]), float(fs[k.F_RAW]),
             float(fs[k.F_DROP]))
+
+
+def _stalled_or_failed(lam, clock, message):
+    """A solver that cannot go on: where the step it needs vanishes the path is approaching an
+    equilibrium of its own metric (``incomplete``), otherwise it ``failed``."""
+    if "spacing between numbers" in message or "no entropy production" in message:
+        return "incomplete", (f"stalled at progress {lam:.6g} (clock s = {clock:.4g}): the metric's path approaches "
+                              "an equilibrium of its own short of the true one")
+    return "failed", f"BDF at progress {lam:.6g}: {message}"
 
 
 class _LazyDense(list):
@@ -941,15 +1030,16 @@ class _LazyDense(list):
         return offset, dense
 
 
-def _stop(lam, t, steps, started, lam_stop, t_end, settings):
+def _stop(lam, s, steps, started, lam_stop, s_limit, settings):
     """(status, reason) where a path stops after an accepted step: ``ok`` at the stop progress,
-    ``incomplete`` at the time limit, ``budget`` for steps or wall time; (None, "") to go on."""
+    ``incomplete`` where its clock ran past the stop without the progress (stalled), ``budget``
+    for steps or wall time; (None, "") to go on."""
     if lam >= lam_stop:
         return "ok", ""
-    if t > t_end:
-        return "incomplete", (f"time limit {t:.3g} s ({settings.time_factor:g} x the observed relaxation) reached at "
-                              f"progress {lam:.6g}: the metric relaxes far more slowly than the kinetics, or towards "
-                              "a constrained equilibrium")
+    if s > s_limit:
+        return "incomplete", (f"stalled at progress {lam:.6g}: the clock s = -ln(1 - lambda) ran {_STALL_MARGIN:g} past "
+                              "the stop progress's without the potential getting there; the metric's path "
+                              "approaches an equilibrium of its own short of the true one")
     if steps >= settings.max_steps:
         return "budget", f"step budget {settings.max_steps} used at progress {lam:.6g}"
     if _time.perf_counter() - started > settings.max_wall_seconds:

@@ -5,6 +5,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 METRICS = ("log-mean", "onsager", "fitted-scalar", "fitted-diagonal", "fitted-arrhenius")
+#: the log-mean path integrates mass action through Cantera (its rates need the full kinetics):
+#: a check of the method, opt-in, not a comparison every case pays for
+DEFAULT_METRICS = METRICS[1:]
 WEIGHTS = ("entropy", "time", "progress")
 IRREVERSIBLE_TREATMENTS = ("reversible", "omit")
 PROGRESS_LEVELS = (0.5, 0.9, 0.99)
@@ -32,15 +35,15 @@ class SeaSettings:
     max_steps : step budget of one SEA path.
     max_wall_seconds : s, wall-clock budget of one SEA path.
     n_modes : number of slowest relaxation rates stored.
-    time_factor : 1, an SEA path stops (status ``incomplete``) after this multiple of the observed
-        relaxation time.
+    mobility_floor : 1, every constant or Arrhenius mobility is at least this share of the metric's
+        largest (see ``comparison._floored``); part of the stored metric.
     trace_level : 1, amount (over the total) below which a constant or arrhenius mobility is scaled
         down like mass action (see ``_System._trace``); 0 switches it off. Such species carry
         less than 1e-4 of the Fisher-Rao angle; without the scaling, a constant metric drains them
         on time scales far below the solver's resolution.
     """
 
-    metrics: tuple[str, ...] = METRICS
+    metrics: tuple[str, ...] = DEFAULT_METRICS
     start_progress: float = 0.01
     weight: str = "entropy"
     n_progress: int = 101
@@ -54,7 +57,7 @@ class SeaSettings:
     max_wall_seconds: float = 120.0
     n_modes: int = 10
     trace_level: float = 1e-8
-    time_factor: float = 1e15
+    mobility_floor: float = 1e-14
 
     @classmethod
     def from_mapping(cls, mapping: dict | None) -> "SeaSettings":
@@ -87,5 +90,7 @@ class SeaSettings:
             raise ValueError("sea: need 0 <= start_progress < end_progress < 1")
         if self.n_progress < 2 or self.n_modes < 1:
             raise ValueError("sea: n_progress >= 2 and n_modes >= 1")
+        if not 0.0 <= self.mobility_floor < 1.0:
+            raise ValueError(f"sea.mobility_floor must be in [0, 1), not {self.mobility_floor!r}")
         if not (self.rtol > 0 and self.atol > 0 and self.metric_rtol > 0 and self.metric_atol > 0):
             raise ValueError("sea: rtol and atol must be positive")
