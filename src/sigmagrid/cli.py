@@ -98,7 +98,8 @@ def cmd_summarize(args) -> int:
 
 _CASE_FIELDS = {"mechanism": "--mechanism", "reactors[0]": "--reactor", "temperature[0]": "--temperature",
                 "pressure[0]": "--pressure", "compositions[0].composition": "--composition",
-                "stop.max_time": "--max-time", "storage.max_samples": "--max-samples"}
+                "stop.max_time": "--max-time",
+                "stop.isothermal_max_time": "--max-time", "storage.max_samples": "--max-samples"}
 
 
 def cmd_case(args) -> int:
@@ -107,7 +108,7 @@ def cmd_case(args) -> int:
     raw = {"mechanism": args.mechanism, "reactors": [args.reactor], "temperature": [args.temperature],
            "pressure": [args.pressure], "compositions": [{"name": "mixture", "composition": args.composition}]}
     if args.max_time is not None:
-        raw["stop"] = {"max_time": args.max_time}
+        raw["stop"] = {"isothermal_max_time" if args.reactor == "isothermal" else "max_time": args.max_time}
     if args.max_samples is not None:
         raw["storage"] = {"max_samples": args.max_samples}
     try:
@@ -196,7 +197,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--pressure", type=float, required=True, help="initial pressure, Pa")
     p.add_argument("--composition", required=True, help="mole-based, e.g. 'H2:2,O2:1,N2:3.76'")
     p.add_argument("--out", required=True, help="output file, .nc")
-    p.add_argument("--max-time", type=float, default=None, help="s (default 10)")
+    p.add_argument("--max-time", type=float, default=None, help="s (default 10; isothermal 1e6)")
     p.add_argument("--max-samples", type=int, default=None, help="stored samples (default 500)")
     p.set_defaults(func=cmd_case)
 

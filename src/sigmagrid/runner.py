@@ -39,7 +39,9 @@ class RunSettings:
     def from_config(cls, config: dict) -> "RunSettings":
         stop, solver = config["stop"], config["solver"]
         return cls(
-            relax=RelaxSettings(max_time=float(stop["max_time"]), progress_tolerance=float(stop["progress_tolerance"]),
+            relax=RelaxSettings(max_time=float(stop["max_time"]),
+                                isothermal_max_time=float(stop["isothermal_max_time"]),
+                                progress_tolerance=float(stop["progress_tolerance"]),
                                 ignition_rise=float(stop["ignition_rise"]), rtol=float(solver["rtol"]),
                                 atol=float(solver["atol"]), max_steps=int(solver["max_steps"]),
                                 volume=float(config["reactor_volume"])),
