@@ -55,7 +55,7 @@ def cmd_cases(args) -> int:
           f"mechanism {grid.mechanism_path.name} (sha256 {grid.mechanism_sha256[:12]})")
     from . import mechanism
 
-    for note in mechanism.describe(mechanism.load(grid.mechanism_path)).notes:
+    for note in mechanism.describe(grid.gas).notes:
         print(f"note: {note}", file=sys.stderr)
     print(f"{'case_id':16}  {'reactor':17}  {'mixture':10}  {'phi [1]':>8}  {'T0 [K]':>8}  {'P0 [Pa]':>10}  label")
     for c in sorted(grid.cases, key=lambda c: c.label):
@@ -96,7 +96,7 @@ def cmd_summarize(args) -> int:
     return 0
 
 
-_CASE_FIELDS = {"mechanism": "--mechanism", "reactors[0]": "--reactor", "temperature[0]": "--temperature",
+_CASE_FIELDS = {"mechanism": "--mechanism", "phase": "--phase", "reactors[0]": "--reactor", "temperature[0]": "--temperature",
                 "pressure[0]": "--pressure", "compositions[0].composition": "--composition",
                 "stop.max_time": "--max-time",
                 "stop.isothermal_max_time": "--max-time", "storage.max_samples": "--max-samples"}
@@ -107,6 +107,8 @@ def cmd_case(args) -> int:
 
     raw = {"mechanism": args.mechanism, "reactors": [args.reactor], "temperature": [args.temperature],
            "pressure": [args.pressure], "compositions": [{"name": "mixture", "composition": args.composition}]}
+    if args.phase is not None:
+        raw["phase"] = args.phase
     if args.max_time is not None:
         raw["stop"] = {"isothermal_max_time" if args.reactor == "isothermal" else "max_time": args.max_time}
     if args.max_samples is not None:
@@ -192,6 +194,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("case", help="run one case to one file")
     p.add_argument("--mechanism", required=True, help="mechanism file or a name Cantera ships")
+    p.add_argument("--phase", default=None, help="ideal-gas phase of a file that defines several (default: the first)")
     p.add_argument("--reactor", required=True, help="isolated, constant-pressure or isothermal")
     p.add_argument("--temperature", type=float, required=True, help="initial temperature, K")
     p.add_argument("--pressure", type=float, required=True, help="initial pressure, Pa")

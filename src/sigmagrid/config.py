@@ -140,7 +140,7 @@ _FLOAT_TEXT = re.compile(r"^[-+]?(?:\d+\.?\d*|\.\d+)[eE][-+]?\d+$")
 
 def _numbers_from_text(node: Any, key: str = "") -> Any:
     # Loaders that follow YAML 1.1 (Snakemake's among them) leave 1e-8 as text.
-    if isinstance(node, str) and key not in ("study", "name", "composition", "fuel", "oxidizer", "mechanism") \
+    if isinstance(node, str) and key not in ("study", "name", "composition", "fuel", "oxidizer", "mechanism", "phase") \
             and _FLOAT_TEXT.match(node.strip()):
         return float(node)
     if isinstance(node, dict):

@@ -155,10 +155,11 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
     else:
         path = mechanism.resolve(config["mechanism"])
         sha = mechanism.file_sha256(path)
-        gas = mechanism.load(path)
+        gas = mechanism.load(path, phase=config.get("phase"))
     info = mechanism.describe(gas)
     settings = RunSettings.from_config(config)
     meta = provenance(path, sha, config_mod.config_hash(config), config.get("study", ""))
+    meta["mechanism_phase"] = gas.name
     meta["settings_sha256"] = config_mod.settings_hash(config)
     for note in info.notes:
         report(f"note: {note}")
@@ -213,8 +214,9 @@ def run_case_to_file(case: grid_mod.Case, gas: ct.Solution, info: mechanism.Mech
 def run_single(config: dict, case: grid_mod.Case, target: str | Path) -> xr.Dataset:
     """One case of a validated config to one file."""
     path = mechanism.resolve(config["mechanism"])
-    gas = mechanism.load(path)
+    gas = mechanism.load(path, phase=config.get("phase"))
     meta = provenance(path, mechanism.file_sha256(path), config_mod.config_hash(config), config.get("study", ""))
+    meta["mechanism_phase"] = gas.name
     meta["settings_sha256"] = config_mod.settings_hash(config)
     return run_case_to_file(case, gas, mechanism.describe(gas), RunSettings.from_config(config), meta, target)
 
