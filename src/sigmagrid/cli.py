@@ -8,7 +8,8 @@
     sigmagrid summarize FILES... --summary S --table T
     sigmagrid plot FILE.nc [--out D]    per-case figures (more in cli_plot.py)
 
-Bad input ends with one line naming the field, exit status 2, and no output file.
+Bad input ends with one line naming the field, exit status 2, and no output file. A results
+folder that refuses a file (full disk, read-only, gone) ends with one line, exit status 74.
 """
 
 from __future__ import annotations
@@ -19,9 +20,10 @@ import os
 import sys
 from pathlib import Path
 
-from .errors import InputError
+from .errors import InputError, StorageError
 
 EXIT_INPUT = 2
+EXIT_STORAGE = 74  # EX_IOERR of sysexits.h
 
 # One BLAS thread per process, unless the user asks otherwise: the matrices here are small (53 x
 # 53, 53 x 325) and grid runs already use every core with processes. With the other core busy,
@@ -91,7 +93,11 @@ def cmd_batch(args) -> int:
 def cmd_summarize(args) -> int:
     from . import runner
 
-    runner.write_summary(args.files, args.summary, args.table, args.workers)
+    try:
+        runner.write_summary(args.files, args.summary, args.table, args.workers)
+    except OSError as err:
+        raise runner.storage_error(Path(args.summary).parent, err, "the summary", "the case files are untouched") \
+            from None
     print(f"wrote {args.summary} and {args.table} from {len(args.files)} case files")
     return 0
 
@@ -237,6 +243,9 @@ def main(argv: list[str] | None = None) -> int:
     except InputError as err:
         print(f"sigmagrid: error: {err.field}: {err.message}", file=sys.stderr)
         return EXIT_INPUT
+    except StorageError as err:
+        print(f"sigmagrid: error: {err.message}", file=sys.stderr)
+        return EXIT_STORAGE
     except BrokenPipeError:  # output piped into head or less that closed early
         sys.stdout = open(os.devnull, "w")
         return 0

@@ -8,8 +8,10 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import errno
 import fcntl
 import os
+import shutil
 import sys
 import time
 import traceback
@@ -23,7 +25,7 @@ import xarray as xr
 
 from . import __version__, config as config_mod, diagnostics, grid as grid_mod, mechanism, safety, store
 from . import sea as sea_mod
-from .errors import InputError
+from .errors import InputError, StorageError
 from .reactors import Relaxation, RelaxSettings, relax
 
 
@@ -171,7 +173,11 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
             written.append(target)
             continue
         started = time.perf_counter()
-        ds = run_case_to_file(case, gas, info, settings, meta, target)
+        try:
+            ds = run_case_to_file(case, gas, info, settings, meta, target)
+        except OSError as err:
+            raise storage_error(out_dir, err, f"case file {target.name}",
+                                f"{len(written)} finished case files are kept") from None
         written.append(target)
         why = f" ({ds.attrs['reason']})" if ds.attrs["reason"] else ""
         report(f"[{n}/{len(cases)}] {case.label}: {ds.attrs['status']} in {time.perf_counter() - started:.2f} s, "
@@ -237,6 +243,31 @@ def write_summary(case_files: list[str | Path], summary_path: str | Path, table_
     return summary
 
 
+def storage_error(folder: Path, err: OSError, what: str, kept: str) -> StorageError:
+    """One line for a write that the folder refused: which folder, why (as far as the system
+    tells: netCDF-C reports a full disk as "Permission denied"), what was kept, how to go on."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        why = "the folder no longer exists"
+    elif not os.access(folder, os.W_OK):
+        why = "the folder is read-only"
+    else:
+        try:
+            free = shutil.disk_usage(folder).free
+        except OSError:
+            free = None
+        if err.errno == errno.ENOSPC or (free is not None and free < LOW_SPACE_BYTES):
+            why = "no space left on the device" + (f" ({free / 2**20:.1f} MiB free)" if free is not None else "")
+        else:
+            why = err.strerror or type(err).__name__
+    return StorageError(f"cannot write {what} in '{folder}': {why}. No partial file is left; {kept}. "
+                        "Free space or fix the folder, then rerun the same command to continue")
+
+
+#: bytes, free space below which a refused write is put down to a full disk (a case file is kB-MB)
+LOW_SPACE_BYTES = 64 * 2**20
+
+
 def run_grid(config: dict, results: str | Path = "results", report: Callable[[str], None] = print) -> xr.Dataset:
     """The whole job in one process: every case, then the summary. Reruns skip finished case files.
 
@@ -244,10 +275,17 @@ def run_grid(config: dict, results: str | Path = "results", report: Callable[[st
     """
     results = Path(results)
     grid = grid_mod.expand(config)
-    with folder_lock(results):
+    with contextlib.ExitStack() as stack:
+        try:
+            stack.enter_context(folder_lock(results))
+        except OSError as err:
+            raise storage_error(results, err, f"the lock file {LOCK_NAME}", "nothing was run") from None
         files = run_cases(config, list(grid.cases), results / "cases", report=report, skip_existing=True,
                           grid=grid)
-        return write_summary(files, results / "summary.nc", results / "cases.csv")
+        try:
+            return write_summary(files, results / "summary.nc", results / "cases.csv")
+        except OSError as err:
+            raise storage_error(results, err, "the summary", f"all {len(files)} case files are kept") from None
 
 
 LOCK_NAME = ".sigmagrid-run.lock"
