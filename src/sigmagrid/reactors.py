@@ -612,6 +612,7 @@ def stall_reason(gas: ct.Solution, info: MechanismInfo, reactor_type: str, mass:
     with np.errstate(divide="ignore", invalid="ignore"):
         share = np.where(n > 0, n * np.log(n / np.where(n_eq > 0, n_eq, 1e-300)), 0.0) - n + n_eq
     nu = np.asarray(gas.product_stoich_coeffs - gas.reactant_stoich_coeffs)  # (species, reactions)
+    rates = gas.forward_rates_of_progress  # kmol/(m3 s); an irreversible reaction runs forward only
     named = []
     for i in np.argsort(share)[::-1][:STALL_SPECIES_NAMED]:
         if not share[i] > 0.1 * share.max():  # name the few that matter
@@ -622,10 +623,14 @@ def stall_reason(gas: ct.Solution, info: MechanismInfo, reactor_type: str, mass:
         one_way_towards = involved & ~info.reversible & ((nu[i] < 0) if excess else (nu[i] > 0))
         one_way_away = involved & ~info.reversible & ((nu[i] > 0) if excess else (nu[i] < 0))
         verb, opposite = ("consumes", "form") if excess else ("forms", "consume")
+        pulling = np.flatnonzero(one_way_away & (rates > 0))
         if not (reversible.any() or one_way_towards.any()):
             why = f"no reaction {verb} it"
             if one_way_away.any():
                 why += f"; only irreversible reactions {opposite} it"
+        elif pulling.size:
+            j = int(pulling[np.argmax(rates[pulling])])
+            why = f"the irreversible reaction {info.equations[j]} keeps {'forming' if excess else 'consuming'} it"
         else:
             why = "the reactions that could bring it to equilibrium have all but stopped"
         named.append(f"{gas.species_names[i]} (mole fraction {n[i]:.2e}, {n_eq[i]:.2e} at equilibrium: {why})")
