@@ -398,7 +398,9 @@ def relax(
             if deficit <= target:
                 status, reason = "relaxed", ""
                 break
-            if _stalled(path.times, potentials, rate, fastest, fastest_at, deficit - target, max_time):
+            progress = 1.0 - deficit / (held.state.potential - potentials[0])
+            if progress >= STALL_MIN_PROGRESS and _stalled(path.times, potentials, rate, fastest, fastest_at,
+                                                           deficit - target, max_time):
                 status, reason = "not-relaxed", stall_reason(gas, info, reactor_type, mass, held.state,
                                                              deficit, path.times, potentials)
                 break
@@ -550,6 +552,11 @@ def _equilibrium_here(gas: ct.Solution, reactor_type: str, mass: float) -> Equil
 #: the stall rule looks at the potential once its rise has fallen below this fraction of its peak
 #: (past the main heat release; as :data:`DEFER_UNTIL_RATE_FRACTION`)
 STALL_RATE_FRACTION = 1e-3
+
+#: progress a path must have made before it can be called stalled: before half of the entropy is
+#: produced the main release has not happened, and an induction period (H2-air at 650 K: the
+#: potential flat to round-off for 0.2 s) looks like a stall; such paths end at max_time as before
+STALL_MIN_PROGRESS = 0.5
 
 #: fraction of the elapsed time over which the recent mean rate of rise is taken
 STALL_WINDOW = 0.1
