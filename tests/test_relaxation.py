@@ -21,8 +21,8 @@ def test_every_case_relaxes(case_files):
         assert ds.attrs["status"] == "relaxed", (label, ds.attrs["reason"])
 
 
-#: largest balance residual measured on these 12 cases: 1.19e-5 (constant-pressure, rich, 10 atm;
-#: python /tmp/measure.py of the report); asserted with a 10x margin
+#: largest balance residual measured on these 12 cases: 1.19e-5 (constant-pressure, rich, 10 atm,
+#: the cases of test_end_state_is_cantera_equilibrium); asserted with a 10x margin
 BALANCE_RESIDUAL_LIMIT = 1.2e-4
 
 
