@@ -14,35 +14,77 @@ def relaxed(case_files):
     return {k: v for k, v in case_files.items() if v.attrs["status"] == "relaxed"}
 
 
-def test_every_adiabatic_case_relaxes(case_files):
+def test_every_case_relaxes(case_files):
+    # the isothermal reactor included: its own maximum time (1e6 s) lets the slow tail finish
+    assert len(case_files) == 12
     for label, ds in case_files.items():
-        if ds.attrs["reactor"] != "isothermal":
-            assert ds.attrs["status"] == "relaxed", (label, ds.attrs["reason"])
+        assert ds.attrs["status"] == "relaxed", (label, ds.attrs["reason"])
+
+
+#: largest balance residual measured on these 12 cases: 1.19e-5 (constant-pressure, rich, 10 atm,
+#: the cases of test_end_state_is_cantera_equilibrium); asserted with a 10x margin
+BALANCE_RESIDUAL_LIMIT = 1.2e-4
 
 
 def test_entropy_balance_from_the_stored_file(case_files):
     # dS/dt = V sigma for (U,V) and (H,P) fixed; d(S - H/T)/dt = V sigma at (T,P) fixed
     # (de Groot and Mazur 1962, ch. X). Checked from the file: Delta of the stored potential
-    # against the sum of entropy_produced.
+    # (Cantera's entropy) against the sum of entropy_produced (Cantera's affinities and rates).
     for label, ds in case_files.items():
         change = float(ds["potential"][-1] - ds["potential"][0])
         produced = float(ds["entropy_produced"].sum())
-        assert abs(change - produced) / change <= 1e-3, label
+        assert abs(change - produced) / change <= BALANCE_RESIDUAL_LIMIT, label
         if ds.attrs["reactor"] != "isothermal":
             assert np.allclose(ds["entropy"], ds["potential"])
-        assert float(ds["balance_residual"]) <= 1e-3
+        assert float(ds["balance_residual"]) <= BALANCE_RESIDUAL_LIMIT
 
 
-def test_end_state_equals_cantera_equilibrate(case_files):
-    # Reference library: Cantera's equilibrate with the reactor's pair held fixed.
+#: measured on the 12 cases below (largest over them), asserted with a 10x margin:
+#: |T_end - T_eq| 0.24 K; max |X_end - X_eq| 2.8e-5 (adiabatic), 3.2e-7 (isothermal)
+END_TEMPERATURE_LIMIT = 2.5  # K
+END_MOLE_FRACTION_LIMIT = {"isolated": 3e-4, "constant-pressure": 3e-4, "isothermal": 3e-6}
+
+
+@pytest.mark.parametrize("reactor", list(HELD))
+@pytest.mark.parametrize("composition", ["H2:2,O2:1,N2:3.76", "H2:4,O2:1,N2:3.76"])
+@pytest.mark.parametrize("pressure", [ct.one_atm, 10 * ct.one_atm])
+def test_end_state_is_cantera_equilibrium(h2o2, reactor, composition, pressure):
+    """Reference: Cantera's equilibrate with the reactor's pair held fixed, from the initial state,
+    with the VCS solver (the code uses the element-potential solver from the path's end). The end
+    potential is within the tolerance of the reference's; a margin of 10 % covers the two solvers."""
+    gas, info = h2o2
+    settings = reactors.RelaxSettings()
+    r = reactors.relax(gas, info, reactor, 1100.0, pressure, composition, settings)
+    assert r.status == "relaxed", r.reason
+    ref = ct.Solution("h2o2.yaml")
+    ref.TPX = 1100.0, pressure, composition
+    ref.equilibrate(HELD[reactor], solver="vcs")
+    potential_eq = r.mass * (ref.entropy_mass - (ref.enthalpy_mass / ref.T if reactor == "isothermal" else 0.0))
+    drive = potential_eq - r.potential[0]
+    assert drive > 0
+    assert potential_eq - r.potential[-1] <= 1.1 * settings.progress_tolerance * drive
+    assert r.temperature[-1] == pytest.approx(ref.T, abs=END_TEMPERATURE_LIMIT)
+    gas.TDY = r.temperature[-1], r.density[-1], r.mass_fractions[-1]
+    assert np.abs(gas.X - ref.X).max() <= END_MOLE_FRACTION_LIMIT[reactor]
+
+
+def test_stored_equilibrium_has_zero_affinities(case_files):
+    # At equilibrium every affinity vanishes (de Donder): A_j / RT = 0 for every reaction, and the
+    # element amounts are those of the feed. Measured largest |A_j/RT| of the stored states: 7.5e-11;
+    # limit 1e-8, ten times the relative tolerance of Cantera's equilibrate (rtol=1e-9, its default).
     gas = ct.Solution("h2o2.yaml")
-    for label, ds in relaxed(case_files).items():
+    for label, ds in case_files.items():
+        x_eq = ds["equilibrium_mole_fraction"].values
         gas.TPX = ds.attrs["initial_temperature"], ds.attrs["initial_pressure"], ds.attrs["composition"]
-        gas.equilibrate(HELD[ds.attrs["reactor"]])
-        assert float(ds["temperature"][-1]) == pytest.approx(gas.T, abs=1.0), label
-        assert float(ds["equilibrium_temperature"]) == pytest.approx(gas.T, abs=1e-6)
-        x_end = ds["mole_fraction"].isel(time=-1).values
-        assert np.allclose(x_end, gas.X, atol=2e-4), label
+        if ds.attrs["reactor"] == "isolated":  # same volume and mass: same density
+            gas.TDX = float(ds["equilibrium_temperature"]), gas.density, x_eq
+        else:
+            gas.TPX = float(ds["equilibrium_temperature"]), ds.attrs["initial_pressure"], x_eq
+        assert np.abs(gas.delta_gibbs / (ct.gas_constant * gas.T)).max() <= 1e-8, label
+        elements_eq = [gas.elemental_mole_fraction(e) for e in ("H", "O", "N")]
+        gas.TPX = 300.0, ct.one_atm, ds.attrs["composition"]
+        elements_0 = [gas.elemental_mole_fraction(e) for e in ("H", "O", "N")]
+        assert np.allclose(elements_eq, elements_0, rtol=1e-9), label
 
 
 def test_de_donder_inequality_for_reversible_reactions(case_files):
@@ -159,28 +201,46 @@ def _modified_mechanism(tmp_path, edit):
     return path
 
 
-def test_irreversible_reactions_are_audited(tmp_path):
-    # An irreversible reaction breaks de Donder's inequality: the audit must report it.
-    def make_irreversible(data):
-        plain = [r for r in data["reactions"] if "type" not in r and "<=>" in r["equation"]]
-        for r in plain[:2]:
-            r["equation"] = r["equation"].replace("<=>", "=>")
+def stalled_h2o2(data):
+    """A skeletal h2o2: H2O2 formed only by irreversible reactions and consumed by none."""
+    kept = []
+    for r in data["reactions"]:
+        left, _, right = r["equation"].partition("<=>")
+        if "H2O2" not in r["equation"]:
+            kept.append(r)
+        elif "H2O2" in right and "H2O2" not in left:
+            kept.append(dict(r, equation=r["equation"].replace("<=>", "=>")))
+    data["reactions"] = kept
 
-    path = _modified_mechanism(tmp_path, make_irreversible)
+
+def test_irreversible_reactions_produce_negative_entropy(tmp_path, h2o2):
+    """2 OH (+M) => H2O2 (+M), irreversible, runs on in the hot products where H2O2 is far above its
+    equilibrium amount: its affinity is negative, so its entropy production A q / T is negative.
+    Checked with the mass-action identity A_j = R T ln(K_c,j / Q_j) from Cantera's equilibrium
+    constants and concentrations (not the code's delta-G) and q_j = r+_j (irreversible), integrated
+    over the recorded path with the trapezoidal rule as the code does."""
+    path = _modified_mechanism(tmp_path, stalled_h2o2)
     gas = mechanism.load(path)
     info = mechanism.describe(gas)
-    assert info.n_irreversible == 2
+    assert info.n_irreversible == 3
     r = reactors.relax(gas, info, "isolated", 1100.0, ct.one_atm, "H2:2,O2:1,N2:3.76",
                        reactors.RelaxSettings(max_time=1.0))
-    # With irreversible steps the kinetic end point need not be the thermodynamic equilibrium,
-    # so the case may stop at the maximum time; the balance identity holds either way.
-    assert r.status in ("relaxed", "not-relaxed")
-    assert r.audit.n_irreversible == 2
-    irreversible = ~info.reversible
-    assert r.audit.negative_share == pytest.approx(
-        -r.entropy_produced[r.entropy_produced < 0].sum() / np.abs(r.entropy_produced).sum(), abs=1e-15)
-    assert r.balance_residual < 1e-3
-    print("irreversible audit:", r.status, r.audit, r.entropy_produced[irreversible])
+    j = gas.reaction_equations().index("2 OH (+M) => H2O2 (+M)")
+    nu = (gas.product_stoich_coeffs - gas.reactant_stoich_coeffs)[:, j]
+    sigma = np.empty(r.time.size)
+    for i in range(r.time.size):
+        gas.TDY = r.temperature[i], r.density[i], np.clip(r.mass_fractions[i], 1e-300, None)
+        log_q = float(nu @ np.log(gas.concentrations))  # kmol/m3
+        affinity = ct.gas_constant * gas.T * (np.log(gas.equilibrium_constants[j]) - log_q)  # J/kmol
+        sigma[i] = affinity * gas.forward_rates_of_progress[j] / gas.T  # W/(m3 K)
+    independent = float(np.trapezoid(sigma * r.volume, r.time))
+    assert independent < 0 and r.entropy_produced[j] < 0
+    print(f"2 OH => H2O2: produced {r.entropy_produced[j]:.6e} J/K, independent {independent:.6e} J/K, "
+          f"balance residual {r.balance_residual:.2e}")
+    assert r.entropy_produced[j] == pytest.approx(independent, rel=1e-9)  # measured 1.3e-15: round-off
+    assert r.audit.n_irreversible == 3
+    assert r.audit.negative_share >= -independent / np.abs(r.entropy_produced).sum() > 0
+    assert r.balance_residual <= BALANCE_RESIDUAL_LIMIT
 
 
 def test_duplicate_with_negative_prefactor_is_checked_per_group(tmp_path):

@@ -64,11 +64,3 @@ def test_mass_action_affinity_rate_relation(h2o2):
     assert np.allclose(q, rf * -np.expm1(-x), rtol=1e-6)
     assert (state.entropy_production[0] >= 0).all()
 
-
-def test_log_mean_limits():
-    from sigmagrid.diagnostics import log_mean
-
-    r = np.array([1.0, 2.0, 1e-300, 5.0])
-    assert log_mean(r, r) == pytest.approx(r)  # Lambda -> r+ at equilibrium
-    assert log_mean(np.array([np.e]), np.array([1.0]))[0] == pytest.approx(np.e - 1.0)
-    assert log_mean(np.array([1.0]), np.array([0.0]))[0] == 0.0

@@ -8,7 +8,8 @@
     sigmagrid summarize FILES... --summary S --table T
     sigmagrid plot FILE.nc [--out D]    per-case figures (more in cli_plot.py)
 
-Bad input ends with one line naming the field, exit status 2, and no output file.
+Bad input ends with one line naming the field, exit status 2, and no output file. A results
+folder that refuses a file (full disk, read-only, gone) ends with one line, exit status 74.
 """
 
 from __future__ import annotations
@@ -19,9 +20,10 @@ import os
 import sys
 from pathlib import Path
 
-from .errors import InputError
+from .errors import InputError, StorageError
 
 EXIT_INPUT = 2
+EXIT_STORAGE = 74  # EX_IOERR of sysexits.h
 
 # One BLAS thread per process, unless the user asks otherwise: the matrices here are small (53 x
 # 53, 53 x 325) and grid runs already use every core with processes. With the other core busy,
@@ -55,7 +57,7 @@ def cmd_cases(args) -> int:
           f"mechanism {grid.mechanism_path.name} (sha256 {grid.mechanism_sha256[:12]})")
     from . import mechanism
 
-    for note in mechanism.describe(mechanism.load(grid.mechanism_path)).notes:
+    for note in mechanism.describe(grid.gas).notes:
         print(f"note: {note}", file=sys.stderr)
     print(f"{'case_id':16}  {'reactor':17}  {'mixture':10}  {'phi [1]':>8}  {'T0 [K]':>8}  {'P0 [Pa]':>10}  label")
     for c in sorted(grid.cases, key=lambda c: c.label):
@@ -91,14 +93,19 @@ def cmd_batch(args) -> int:
 def cmd_summarize(args) -> int:
     from . import runner
 
-    runner.write_summary(args.files, args.summary, args.table, args.workers)
+    try:
+        runner.write_summary(args.files, args.summary, args.table, args.workers)
+    except OSError as err:
+        raise runner.storage_error(Path(args.summary).parent, err, "the summary", "the case files are untouched") \
+            from None
     print(f"wrote {args.summary} and {args.table} from {len(args.files)} case files")
     return 0
 
 
-_CASE_FIELDS = {"mechanism": "--mechanism", "reactors[0]": "--reactor", "temperature[0]": "--temperature",
+_CASE_FIELDS = {"mechanism": "--mechanism", "phase": "--phase", "reactors[0]": "--reactor", "temperature[0]": "--temperature",
                 "pressure[0]": "--pressure", "compositions[0].composition": "--composition",
-                "stop.max_time": "--max-time", "storage.max_samples": "--max-samples"}
+                "stop.max_time": "--max-time",
+                "stop.isothermal_max_time": "--max-time", "storage.max_samples": "--max-samples"}
 
 
 def cmd_case(args) -> int:
@@ -106,8 +113,10 @@ def cmd_case(args) -> int:
 
     raw = {"mechanism": args.mechanism, "reactors": [args.reactor], "temperature": [args.temperature],
            "pressure": [args.pressure], "compositions": [{"name": "mixture", "composition": args.composition}]}
+    if args.phase is not None:
+        raw["phase"] = args.phase
     if args.max_time is not None:
-        raw["stop"] = {"max_time": args.max_time}
+        raw["stop"] = {"isothermal_max_time" if args.reactor == "isothermal" else "max_time": args.max_time}
     if args.max_samples is not None:
         raw["storage"] = {"max_samples": args.max_samples}
     try:
@@ -191,12 +200,13 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("case", help="run one case to one file")
     p.add_argument("--mechanism", required=True, help="mechanism file or a name Cantera ships")
+    p.add_argument("--phase", default=None, help="ideal-gas phase of a file that defines several (default: the first)")
     p.add_argument("--reactor", required=True, help="isolated, constant-pressure or isothermal")
     p.add_argument("--temperature", type=float, required=True, help="initial temperature, K")
     p.add_argument("--pressure", type=float, required=True, help="initial pressure, Pa")
     p.add_argument("--composition", required=True, help="mole-based, e.g. 'H2:2,O2:1,N2:3.76'")
     p.add_argument("--out", required=True, help="output file, .nc")
-    p.add_argument("--max-time", type=float, default=None, help="s (default 10)")
+    p.add_argument("--max-time", type=float, default=None, help="s (default 10; isothermal 1e6)")
     p.add_argument("--max-samples", type=int, default=None, help="stored samples (default 500)")
     p.set_defaults(func=cmd_case)
 
@@ -233,6 +243,9 @@ def main(argv: list[str] | None = None) -> int:
     except InputError as err:
         print(f"sigmagrid: error: {err.field}: {err.message}", file=sys.stderr)
         return EXIT_INPUT
+    except StorageError as err:
+        print(f"sigmagrid: error: {err.message}", file=sys.stderr)
+        return EXIT_STORAGE
     except BrokenPipeError:  # output piped into head or less that closed early
         sys.stdout = open(os.devnull, "w")
         return 0

@@ -23,7 +23,7 @@ from .errors import InputError
 
 DEFAULTS: dict[str, Any] = {
     "study": "",
-    "stop": {"max_time": 10.0, "progress_tolerance": 1e-8, "ignition_rise": 50.0},
+    "stop": {"max_time": 10.0, "isothermal_max_time": 1e6, "progress_tolerance": 1e-8, "ignition_rise": 50.0},
     "solver": {"rtol": 1e-10, "atol": 1e-20, "max_steps": 200_000},
     "reactor_volume": 1e-3,
     "storage": {"max_samples": 500, "max_bytes": 16e6, "compression": "zlib"},
@@ -140,7 +140,7 @@ _FLOAT_TEXT = re.compile(r"^[-+]?(?:\d+\.?\d*|\.\d+)[eE][-+]?\d+$")
 
 def _numbers_from_text(node: Any, key: str = "") -> Any:
     # Loaders that follow YAML 1.1 (Snakemake's among them) leave 1e-8 as text.
-    if isinstance(node, str) and key not in ("study", "name", "composition", "fuel", "oxidizer", "mechanism") \
+    if isinstance(node, str) and key not in ("study", "name", "composition", "fuel", "oxidizer", "mechanism", "phase") \
             and _FLOAT_TEXT.match(node.strip()):
         return float(node)
     if isinstance(node, dict):

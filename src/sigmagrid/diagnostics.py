@@ -81,25 +81,6 @@ def evaluate(gas: ct.Solution, temperature, density, mass_fractions) -> Reaction
     return ReactionState(out["A"], out["rf"], out["rr"], out["q"], temperature)
 
 
-def log_mean(forward: np.ndarray, reverse: np.ndarray) -> np.ndarray:
-    """Logarithmic mean Lambda = (r+ - r-)/(ln r+ - ln r-) of the one-way rates, mol/(m3 s).
-
-    Written as r- * (z - 1)/ln z with z = r+/r-, using ``expm1``/``log1p`` so that it tends smoothly
-    to r+ at equilibrium instead of dividing two vanishing numbers. Zero where either rate is zero.
-    """
-    forward = np.asarray(forward, dtype=float)
-    reverse = np.asarray(reverse, dtype=float)
-    out = np.zeros(np.broadcast(forward, reverse).shape)
-    ok = (forward > 0) & (reverse > 0)
-    lo = np.minimum(forward, reverse)[ok]
-    hi = np.maximum(forward, reverse)[ok]
-    u = np.log(hi) - np.log(lo)  # >= 0
-    small = u < 1e-8
-    ratio = np.where(small, 1.0 + u / 2.0 + u * u / 6.0, np.expm1(u) / np.where(small, 1.0, u))
-    out[ok] = lo * ratio
-    return out
-
-
 @dataclass
 class SignAudit:
     """Which reactions produce negative entropy, and how much (DESIGN section 2)."""

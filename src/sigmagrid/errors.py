@@ -12,3 +12,12 @@ class InputError(ValueError):
 
 class CaseFailure(RuntimeError):
     """A single case could not be computed; the reason is stored with the case."""
+
+
+class StorageError(RuntimeError):
+    """The results folder cannot take a file (full disk, read-only, gone): the run stops with
+    one line naming the folder, what was kept and how to continue."""
+
+    def __init__(self, message: str):
+        self.message = message
+        super().__init__(message)

@@ -90,10 +90,15 @@ def _normalized(gas: ct.Solution) -> str:
     return ",".join(f"{name}:{x:.12g}" for name, x in zip(gas.species_names, gas.X) if x > 0)
 
 
-def case_id(mechanism_sha256: str, reactor: str, temperature: float, pressure: float, composition: str) -> str:
-    """16 hex digits of sha256 over the physical definition and the mechanism's content."""
-    key = json.dumps({"mechanism": mechanism_sha256, "reactor": reactor, "T": f"{temperature:.10g}",
-                      "P": f"{pressure:.10g}", "X": composition}, sort_keys=True)
+def case_id(mechanism_sha256: str, reactor: str, temperature: float, pressure: float, composition: str,
+            phase: str | None = None) -> str:
+    """16 hex digits of sha256 over the physical definition and the mechanism's content (and the
+    phase, where the config picks one: two phases of one file are two mechanisms)."""
+    fields = {"mechanism": mechanism_sha256, "reactor": reactor, "T": f"{temperature:.10g}",
+              "P": f"{pressure:.10g}", "X": composition}
+    if phase is not None:
+        fields["phase"] = phase
+    key = json.dumps(fields, sort_keys=True)
     return hashlib.sha256(key.encode()).hexdigest()[:16]
 
 
@@ -114,7 +119,7 @@ def expand(config: dict, project_root: str | Path | None = None) -> Grid:
         raise InputError("batch.max_cases", f"the grid has {n_cases} cases, more than the limit {limit}; "
                          "raise batch.max_cases if this is intended")
     path = mechanism.resolve(config["mechanism"], root=project_root)
-    gas = mechanism.load(path)
+    gas = mechanism.load(path, phase=config.get("phase"))
     sha = mechanism.file_sha256(path)
     mixtures: list[tuple[str, float, str]] = []  # (name, phi, normalized composition)
 
@@ -158,7 +163,7 @@ def expand(config: dict, project_root: str | Path | None = None) -> Grid:
     for reactor, (name, phi, comp), temperature, pressure in itertools.product(
             config["reactors"], mixtures, config["temperature"], config["pressure"]):
         cases.append(Case(
-            case_id=case_id(sha, reactor, float(temperature), float(pressure), comp),
+            case_id=case_id(sha, reactor, float(temperature), float(pressure), comp, config.get("phase")),
             label=_label(reactor, name, float(temperature), float(pressure)),
             reactor=reactor, temperature=float(temperature), pressure=float(pressure),
             equivalence_ratio=phi, composition_name=name, composition=comp,

@@ -10,6 +10,7 @@ from pathlib import Path
 
 import cantera as ct
 import numpy as np
+import yaml
 
 from .errors import InputError
 
@@ -98,22 +99,55 @@ def thermo_gaps(gas: ct.Solution) -> list[tuple[str, float, float]]:
     return out
 
 
-def load(path: Path, field_name: str = "mechanism") -> ct.Solution:
+#: the only equation of state the reactors accept (Cantera's ideal-gas reactors)
+IDEAL_GAS = "ideal-gas"
+
+
+def phases_of(path: Path) -> list[tuple[str, str]]:
+    """(name, thermo model) of every phase a YAML mechanism file defines, in file order; empty
+    if the file cannot be read as such."""
+    try:
+        with open(path, encoding="utf-8") as handle:
+            data = yaml.load(handle, Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader))  # noqa: S506
+        return [(str(ph.get("name", "")), str(ph.get("thermo", ""))) for ph in data.get("phases", [])
+                if isinstance(ph, dict)]
+    except Exception:  # noqa: BLE001 - only used to word a message
+        return []
+
+
+def _ideal_gas_phases(path: Path) -> str:
+    names = [name for name, thermo in phases_of(path) if thermo == IDEAL_GAS]
+    return ", ".join(names) if names else "none (the file offers no ideal-gas phase)"
+
+
+def load(path: Path, field_name: str = "mechanism", phase: str | None = None) -> ct.Solution:
     """A new ``ct.Solution`` for the mechanism file; parse errors become an :class:`InputError`.
+
+    ``phase``: the name of the phase to use in a file that defines several (default: the first).
+    A phase that is not an ideal gas is refused (field ``phase``), naming the ideal-gas phases
+    the file offers: the reactors are Cantera's ideal-gas reactors.
 
     Thermo data whose NASA7 ranges jump by more than :data:`THERMO_GAP_REFUSE` at the midpoint are
     refused, naming the species; smaller jumps above :data:`THERMO_GAP_NOTE` are noted by
     :func:`describe`.
     """
     check_file(path, field_name)
+    if phase is not None:
+        names = [name for name, _ in phases_of(path)]
+        if names and phase not in names:
+            raise InputError("phase", f"{phase!r} is not a phase of '{path}'; its phases: {', '.join(names)} "
+                             f"(ideal gas: {_ideal_gas_phases(path)})")
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            gas = ct.Solution(str(path))
+            gas = ct.Solution(str(path), phase or "")
     except Exception as err:  # CanteraError, YAML errors
         lines = [ln.strip() for ln in str(err).splitlines() if ln.strip() and not set(ln.strip()) <= set("*-")]
         detail = " ".join(lines)[:500]
         raise InputError(field_name, f"'{path}' does not load in Cantera: {detail}") from None
+    if gas.thermo_model != IDEAL_GAS:
+        raise InputError("phase", f"phase '{gas.name}' of '{path}' is {gas.thermo_model}, not an ideal gas, "
+                         f"which the reactors need; allowed values (its ideal-gas phases): {_ideal_gas_phases(path)}")
     if gas.n_reactions == 0:
         raise InputError(field_name, f"'{path}' has no reactions: there is nothing to relax")
     gross = [(name, t_mid, jump) for name, t_mid, jump in thermo_gaps(gas) if not jump <= THERMO_GAP_REFUSE]

@@ -466,7 +466,7 @@ def write_cuts(config: dict, ranking: xr.Dataset, out_dir: str | Path,
                report: Callable[[str], None] = print) -> list[Cut]:
     """Write ``<out_dir>/<criterion>-<threshold>.yaml`` for every cut of the config."""
     path = mechanism.resolve(config["mechanism"])
-    gas = mechanism.load(path)
+    gas = mechanism.load(path, phase=config.get("phase"))
     if list(gas.reaction_equations()) != [str(r) for r in ranking["reaction"].values]:
         raise InputError("mechanism", f"'{path.name}' is not the mechanism the ranking was made with")
     red = reduction_settings(config)

@@ -20,6 +20,7 @@ own examples; entropy production per reaction is integrated over those steps.
 
 from __future__ import annotations
 
+import bisect
 import time as _time
 import warnings
 from dataclasses import dataclass, field
@@ -41,8 +42,13 @@ STATUSES = ("relaxed", "not-relaxed", "failed")
 class RelaxSettings:
     """End criteria and solver settings of one relaxation.
 
-    max_time : s, integration stops there with status ``not-relaxed``.
-    progress_tolerance : 1, stop once Phi_eq - Phi <= tolerance * (Phi_eq - Phi_0).
+    max_time : s, the adiabatic reactors stop there with status ``not-relaxed``.
+    isothermal_max_time : s, the same for the isothermal reactor. Without heat release the last
+        traces of fuel recombine by second-order steps whose deficit falls as a power of time
+        (H2-air at 1100 K, 1 atm: 2e-5 of the drive left at 100 s, 1e-8 at 2.8e4 s, in 4300
+        solver steps), so it needs far more simulated time, though few steps.
+    progress_tolerance : 1, stop once Phi_eq - Phi <= tolerance * (Phi_eq - Phi_0), Phi_eq the
+        equilibrium of the energy (or enthalpy) the reactor actually holds.
     rtol, atol : CVODE relative and absolute tolerances.
     max_steps : budget of solver steps for the whole case.
     volume : m3, initial reactor volume (scales extensive results: entropy, entropy produced).
@@ -52,6 +58,7 @@ class RelaxSettings:
     """
 
     max_time: float = 10.0
+    isothermal_max_time: float = 1e6
     progress_tolerance: float = 1e-8
     rtol: float = 1e-10
     atol: float = 1e-20
@@ -59,6 +66,10 @@ class RelaxSettings:
     volume: float = 1e-3
     ignition_rise: float = 50.0
     sparse_species: int = 300
+
+    def time_limit(self, reactor_type: str) -> float:
+        """s, the maximum time of this reactor type."""
+        return self.isothermal_max_time if reactor_type == "isothermal" else self.max_time
 
 
 @dataclass
@@ -288,7 +299,8 @@ def relax(
 
     Returns
     -------
-    Relaxation with status ``relaxed``, ``not-relaxed`` (maximum time or step budget reached) or
+    Relaxation with status ``relaxed``, ``not-relaxed`` (maximum time or step budget reached, or
+    the path stalled short of equilibrium: reason "stalled: ...", see :func:`_stalled`) or
     ``failed`` (the solver's or equilibrium solver's message in ``reason``). Never raises for a
     solver failure: the path computed so far is kept.
     """
@@ -355,20 +367,22 @@ def relax(
         return result(*stop, equilibrium)
 
     reactor, net = make_network(reactor_type, gas, settings)
+    max_time = settings.time_limit(reactor_type)
     target = settings.progress_tolerance * (equilibrium.potential - potentials[0]) if equilibrium else np.nan
+    held = _HeldEquilibrium(gas, reactor_type, mass, equilibrium, energy0)
     t_prev = 0.0
-    fastest = 0.0  # J/(K s), fastest rise of the potential so far (deferred equilibrium only)
-    near, next_check = 0, 25
-    status, reason = "not-relaxed", f"maximum time {settings.max_time:g} s reached before equilibrium"
+    fastest, fastest_at = 0.0, 0.0  # J/(K s) and s: fastest rise of the potential so far, and when
+    status, reason = "not-relaxed", f"maximum time {max_time:g} s reached before equilibrium"
     try:
         for _ in range(settings.max_steps):
             t = net.step()  # the last step may end past max_time by one solver step
             record(t, reactor.volume)
+            rate = (potentials[-1] - potentials[-2]) / (t - t_prev) if t > t_prev else 0.0
+            if rate > fastest:
+                fastest, fastest_at = rate, t
+            t_prev = t
             if equilibrium is None:
-                rate = (potentials[-1] - potentials[-2]) / (t - t_prev) if t > t_prev else 0.0
-                fastest = max(fastest, rate)
-                t_prev = t
-                if not (fastest > 0 and rate <= DEFER_UNTIL_RATE_FRACTION * fastest) and t < settings.max_time:
+                if not (fastest > 0 and rate <= DEFER_UNTIL_RATE_FRACTION * fastest) and t < max_time:
                     continue
                 try:
                     equilibrium = deferred_equilibrium()
@@ -379,24 +393,18 @@ def relax(
                     status, reason = stop
                     break
                 target = settings.progress_tolerance * (equilibrium.potential - potentials[0])
-            t_prev = t
-            deficit = equilibrium.potential - potentials[-1]
+                held = _HeldEquilibrium(gas, reactor_type, mass, equilibrium, energy0)
+            deficit = held.deficit(potentials[-1], target)
             if deficit <= target:
                 status, reason = "relaxed", ""
                 break
-            if deficit <= 1e4 * target:
-                near += 1
-                # each check is an equilibrium solve (about 1 s for 1000+ species): after 25, 50,
-                # 100, ... steps near the end
-                if near >= next_check:
-                    next_check *= 2
-                    if _settled(gas, reactor_type, mass, potentials[-1], target):
-                        # The reactor conserves its own U (or H) only to the accuracy of the thermo
-                        # data: NASA polynomials jump slightly at their midpoint temperature. Judge
-                        # the end against the equilibrium of the energy the reactor actually holds.
-                        status, reason = "relaxed", ""
-                        break
-            if t >= settings.max_time:
+            progress = 1.0 - deficit / (held.state.potential - potentials[0])
+            if progress >= STALL_MIN_PROGRESS and _stalled(path.times, potentials, rate, fastest, fastest_at,
+                                                           deficit - target, max_time):
+                status, reason = "not-relaxed", stall_reason(gas, info, reactor_type, mass, held.state,
+                                                             deficit, path.times, potentials)
+                break
+            if t >= max_time:
                 break
         else:
             reason = f"step budget of {settings.max_steps} solver steps used before equilibrium"
@@ -407,6 +415,8 @@ def relax(
             equilibrium = deferred_equilibrium()
         except ct.CanteraError as err:
             status, reason = "failed", f"equilibrium solver: {_first_line(err)}"
+    elif status != "failed":
+        equilibrium = held.settle(target)  # the equilibrium of the energy held at the end
     return result(status, reason, equilibrium)
 
 
@@ -484,17 +494,154 @@ class _PathRecorder:
                     entropy_produced=self.produced)
 
 
-def _settled(gas: ct.Solution, reactor_type: str, mass: float, potential: float, target: float) -> bool:
+class _HeldEquilibrium:
+    """The equilibrium of the energy (U at V, or H at P) the reactor actually holds.
+
+    NASA7 polynomials whose two ranges disagree at the midpoint make the reactor's U or H jump
+    when the path crosses it, either way. The equilibrium of the initial energy is then the wrong
+    reference. Between solves the held one is extrapolated to first order with the identities
+    (dS/dU)_V = (dS/dH)_P = 1/T; the stop rule confirms with an exact solve.
+    """
+
+    def __init__(self, gas, reactor_type: str, mass: float, state: EquilibriumState | None, energy: float):
+        self.gas, self.reactor_type, self.mass = gas, reactor_type, mass
+        self.state, self.energy = state, energy
+
+    def deficit(self, potential: float, target: float) -> float:
+        """Phi_eq(held energy) - Phi, J/K; solved exactly where the extrapolation matters."""
+        if self.reactor_type == "isothermal" or self.state is None:
+            return self.state.potential - potential if self.state else float("inf")
+        energy = _held_energy(self.reactor_type, self.gas)
+        shift = self.mass * (energy - self.energy) / self.state.temperature
+        deficit = self.state.potential + shift - potential
+        # a shift below a tenth of the tolerance cannot change the verdict (round-off is far below)
+        if abs(shift) > 0.1 * target and (deficit <= target or abs(shift) > 1e3 * target):
+            try:
+                self.state = _equilibrium_here(self.gas, self.reactor_type, self.mass)
+                self.energy = energy
+                deficit = self.state.potential - potential
+            except ct.CanteraError:
+                pass  # keep the extrapolation; the next step tries again
+        return deficit
+
+    def settle(self, target: float) -> EquilibriumState | None:
+        """The equilibrium of the energy held now, solved again if it moved by more than a tenth
+        of the tolerance (the stored reference of a case)."""
+        if self.reactor_type != "isothermal" and self.state is not None:
+            energy = _held_energy(self.reactor_type, self.gas)
+            if abs(self.mass * (energy - self.energy) / self.state.temperature) > 0.1 * target:
+                try:
+                    self.state = _equilibrium_here(self.gas, self.reactor_type, self.mass)
+                    self.energy = energy
+                except ct.CanteraError:
+                    pass
+        return self.state
+
+
+def _equilibrium_here(gas: ct.Solution, reactor_type: str, mass: float) -> EquilibriumState:
+    """Equilibrium from the gas's current state (held pair and element amounts as they are now)."""
     saved = gas.state
     try:
         # CVODE leaves round-off negative mass fractions that upset the equilibrium solver
         gas.TDY = gas.T, gas.density, np.clip(gas.Y, 0.0, None)
-        local = equilibrium_of(gas, reactor_type, mass)
-    except ct.CanteraError:
-        return False
+        return equilibrium_of(gas, reactor_type, mass, guess=gas.X)
     finally:
         gas.state = saved
-    return local.potential - potential <= target
+
+
+#: the stall rule looks at the potential once its rise has fallen below this fraction of its peak
+#: (past the main heat release; as :data:`DEFER_UNTIL_RATE_FRACTION`)
+STALL_RATE_FRACTION = 1e-3
+
+#: progress a path must have made before it can be called stalled: before half of the entropy is
+#: produced the main release has not happened, and an induction period (H2-air at 650 K: the
+#: potential flat to round-off for 0.2 s) looks like a stall; such paths end at max_time as before
+STALL_MIN_PROGRESS = 0.5
+
+#: fraction of the elapsed time over which the recent mean rate of rise is taken
+STALL_WINDOW = 0.1
+
+#: the stall rule waits until the path has run this many times as long as it took to its fastest
+#: rise: a decade of time for the tail, also where irreversible steps briefly lower the potential
+STALL_AFTER_PEAK = 10.0
+
+
+def _stalled(times: list, potentials: list, rate: float, fastest: float, fastest_at: float,
+             remaining: float, max_time: float) -> bool:
+    """Has the rise of the potential slowed so far that equilibrium is out of reach by max_time?
+
+    After its peak, past the main heat release, the potential of a closed reactor rises ever more
+    slowly (near equilibrium dPhi/dt is a positive quadratic form of the affinities, which shrink).
+    The mean rate over the last tenth of the elapsed time then bounds the rate ahead from above, so
+    if the remaining deficit (less the tolerance) would take longer than max_time even at that
+    rate, no later step can relax the case. Paths that merely slow down stop here too, but they
+    would have ended at max_time anyway: no case that could relax is stopped, and a stalled one
+    (kinetics that cannot reach equilibrium) ends long before max_time with its reason.
+    """
+    t = times[-1]
+    if fastest <= 0 or t < STALL_AFTER_PEAK * fastest_at or len(times) < 20:
+        return False
+    k = bisect.bisect_right(times, (1 - STALL_WINDOW) * t) - 1
+    if k < 0 or times[k] >= t:
+        return False
+    recent = (potentials[-1] - potentials[k]) / (t - times[k])
+    if recent > STALL_RATE_FRACTION * fastest:
+        return False  # not yet past the main release
+    if recent <= 0:
+        return True  # irreversible steps drive it away from equilibrium over the whole window
+    if rate > recent:
+        return False  # speeding up again (a second stage)
+    return t + remaining / recent > max_time
+
+
+#: how many species the stall reason names
+STALL_SPECIES_NAMED = 3
+
+
+def stall_reason(gas: ct.Solution, info: MechanismInfo, reactor_type: str, mass: float,
+                 equilibrium: EquilibriumState | None, deficit: float, times: list, potentials: list) -> str:
+    """Reason of a stalled path: how slow, and which species hold the remaining disequilibrium.
+
+    A species' share is its term of the relative entropy sum_k n_k ln(n_k/n_k,eq) - n_k + n_k,eq
+    (>= 0, zero only at equilibrium; for an ideal gas at T, P it sums to (G - G_eq)/RT). For each
+    named species the reactions that could move it towards equilibrium are looked up: a species
+    above its equilibrium amount needs a reversible reaction or an irreversible one consuming it.
+    """
+    t = times[-1]
+    k = max(bisect.bisect_right(times, (1 - STALL_WINDOW) * t) - 1, 0)
+    recent = (potentials[-1] - potentials[k]) / (t - times[k]) if t > times[k] else 0.0
+    head = (f"stalled: at t = {t:.3g} s the potential changes at {recent:.2e} J/(K s), "
+            f"{deficit:.2e} J/K short of equilibrium")
+    if equilibrium is None:
+        return head
+    n = np.clip(gas.X, 0.0, None)
+    n_eq = np.asarray(equilibrium.mole_fractions)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(n > 0, n * np.log(n / np.where(n_eq > 0, n_eq, 1e-300)), 0.0) - n + n_eq
+    nu = np.asarray(gas.product_stoich_coeffs - gas.reactant_stoich_coeffs)  # (species, reactions)
+    rates = gas.forward_rates_of_progress  # kmol/(m3 s); an irreversible reaction runs forward only
+    named = []
+    for i in np.argsort(share)[::-1][:STALL_SPECIES_NAMED]:
+        if not share[i] > 0.1 * share.max():  # name the few that matter
+            break
+        excess = n[i] > n_eq[i]
+        involved = nu[i] != 0
+        reversible = involved & info.reversible
+        one_way_towards = involved & ~info.reversible & ((nu[i] < 0) if excess else (nu[i] > 0))
+        one_way_away = involved & ~info.reversible & ((nu[i] > 0) if excess else (nu[i] < 0))
+        verb, opposite = ("consumes", "form") if excess else ("forms", "consume")
+        pulling = np.flatnonzero(one_way_away & (rates > 0))
+        if not (reversible.any() or one_way_towards.any()):
+            why = f"no reaction {verb} it"
+            if one_way_away.any():
+                why += f"; only irreversible reactions {opposite} it"
+        elif pulling.size:
+            j = int(pulling[np.argmax(rates[pulling])])
+            why = f"the irreversible reaction {info.equations[j]} keeps {'forming' if excess else 'consuming'} it"
+        else:
+            why = "the reactions that could bring it to equilibrium have all but stopped"
+        named.append(f"{gas.species_names[i]} (mole fraction {n[i]:.2e}, {n_eq[i]:.2e} at equilibrium: {why})")
+    return head + ("; furthest from equilibrium: " + "; ".join(named) if named else "")
 
 
 def _first_line(err: Exception) -> str:

@@ -8,8 +8,10 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import errno
 import fcntl
 import os
+import shutil
 import sys
 import time
 import traceback
@@ -23,7 +25,7 @@ import xarray as xr
 
 from . import __version__, config as config_mod, diagnostics, grid as grid_mod, mechanism, safety, store
 from . import sea as sea_mod
-from .errors import InputError
+from .errors import InputError, StorageError
 from .reactors import Relaxation, RelaxSettings, relax
 
 
@@ -39,7 +41,9 @@ class RunSettings:
     def from_config(cls, config: dict) -> "RunSettings":
         stop, solver = config["stop"], config["solver"]
         return cls(
-            relax=RelaxSettings(max_time=float(stop["max_time"]), progress_tolerance=float(stop["progress_tolerance"]),
+            relax=RelaxSettings(max_time=float(stop["max_time"]),
+                                isothermal_max_time=float(stop["isothermal_max_time"]),
+                                progress_tolerance=float(stop["progress_tolerance"]),
                                 ignition_rise=float(stop["ignition_rise"]), rtol=float(solver["rtol"]),
                                 atol=float(solver["atol"]), max_steps=int(solver["max_steps"]),
                                 volume=float(config["reactor_volume"])),
@@ -153,10 +157,11 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
     else:
         path = mechanism.resolve(config["mechanism"])
         sha = mechanism.file_sha256(path)
-        gas = mechanism.load(path)
+        gas = mechanism.load(path, phase=config.get("phase"))
     info = mechanism.describe(gas)
     settings = RunSettings.from_config(config)
     meta = provenance(path, sha, config_mod.config_hash(config), config.get("study", ""))
+    meta["mechanism_phase"] = gas.name
     meta["settings_sha256"] = config_mod.settings_hash(config)
     for note in info.notes:
         report(f"note: {note}")
@@ -168,7 +173,11 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
             written.append(target)
             continue
         started = time.perf_counter()
-        ds = run_case_to_file(case, gas, info, settings, meta, target)
+        try:
+            ds = run_case_to_file(case, gas, info, settings, meta, target)
+        except OSError as err:
+            raise storage_error(out_dir, err, f"case file {target.name}",
+                                f"{len(written)} finished case files are kept") from None
         written.append(target)
         why = f" ({ds.attrs['reason']})" if ds.attrs["reason"] else ""
         report(f"[{n}/{len(cases)}] {case.label}: {ds.attrs['status']} in {time.perf_counter() - started:.2f} s, "
@@ -211,8 +220,9 @@ def run_case_to_file(case: grid_mod.Case, gas: ct.Solution, info: mechanism.Mech
 def run_single(config: dict, case: grid_mod.Case, target: str | Path) -> xr.Dataset:
     """One case of a validated config to one file."""
     path = mechanism.resolve(config["mechanism"])
-    gas = mechanism.load(path)
+    gas = mechanism.load(path, phase=config.get("phase"))
     meta = provenance(path, mechanism.file_sha256(path), config_mod.config_hash(config), config.get("study", ""))
+    meta["mechanism_phase"] = gas.name
     meta["settings_sha256"] = config_mod.settings_hash(config)
     return run_case_to_file(case, gas, mechanism.describe(gas), RunSettings.from_config(config), meta, target)
 
@@ -233,6 +243,31 @@ def write_summary(case_files: list[str | Path], summary_path: str | Path, table_
     return summary
 
 
+def storage_error(folder: Path, err: OSError, what: str, kept: str) -> StorageError:
+    """One line for a write that the folder refused: which folder, why (as far as the system
+    tells: netCDF-C reports a full disk as "Permission denied"), what was kept, how to go on."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        why = "the folder no longer exists"
+    elif not os.access(folder, os.W_OK):
+        why = "the folder is read-only"
+    else:
+        try:
+            free = shutil.disk_usage(folder).free
+        except OSError:
+            free = None
+        if err.errno == errno.ENOSPC or (free is not None and free < LOW_SPACE_BYTES):
+            why = "no space left on the device" + (f" ({free / 2**20:.1f} MiB free)" if free is not None else "")
+        else:
+            why = err.strerror or type(err).__name__
+    return StorageError(f"cannot write {what} in '{folder}': {why}. No partial file is left; {kept}. "
+                        "Free space or fix the folder, then rerun the same command to continue")
+
+
+#: bytes, free space below which a refused write is put down to a full disk (a case file is kB-MB)
+LOW_SPACE_BYTES = 64 * 2**20
+
+
 def run_grid(config: dict, results: str | Path = "results", report: Callable[[str], None] = print) -> xr.Dataset:
     """The whole job in one process: every case, then the summary. Reruns skip finished case files.
 
@@ -240,10 +275,17 @@ def run_grid(config: dict, results: str | Path = "results", report: Callable[[st
     """
     results = Path(results)
     grid = grid_mod.expand(config)
-    with folder_lock(results):
+    with contextlib.ExitStack() as stack:
+        try:
+            stack.enter_context(folder_lock(results))
+        except OSError as err:
+            raise storage_error(results, err, f"the lock file {LOCK_NAME}", "nothing was run") from None
         files = run_cases(config, list(grid.cases), results / "cases", report=report, skip_existing=True,
                           grid=grid)
-        return write_summary(files, results / "summary.nc", results / "cases.csv")
+        try:
+            return write_summary(files, results / "summary.nc", results / "cases.csv")
+        except OSError as err:
+            raise storage_error(results, err, "the summary", f"all {len(files)} case files are kept") from None
 
 
 LOCK_NAME = ".sigmagrid-run.lock"
