@@ -46,7 +46,7 @@ def h2_case(request, h2o2_gas):
     rel = reactors.relax(gas, info, request.param, 1100.0, 2 * ct.one_atm, "H2:2, O2:1, N2:3.76", FAST)
     assert rel.status == "relaxed", rel.reason
     idx = _samples(rel)
-    ds = sea.compare(gas, info, rel, idx)
+    ds = sea.compare(gas, info, rel, idx, sea.SeaSettings(metrics=sea.METRICS))  # the opt-in log-mean check too
     return gas, info, rel, idx, ds
 
 
@@ -73,10 +73,14 @@ def test_layout_and_units(h2_case, tmp_path):
 
 
 def test_log_mean_path_is_the_kinetics(h2_case):
-    """Mielke (2011): q = Lambda x is mass action, so the log-mean SEA path is the observed path."""
+    """Mielke (2011): mass action with detailed balance is the gradient flow q = Lambda x of the
+    entropy under the log-mean mobility. The path integrates q = Lambda(state) x(state), formed
+    from its own state (one-way rates and chemical potentials), not Cantera's net rates; it must
+    follow the observed (CVODE) path at equal progress."""
     ds = h2_case[4].sel(metric="log-mean")
-    assert float(ds.largest_path_angle) <= 1e-3
-    assert np.nanmax(np.abs(ds.temperature_difference.values)) <= 0.5
+    assert float(ds.largest_path_angle) <= 1e-4  # rad
+    assert np.nanmax(np.abs(ds.temperature_difference.values)) <= 0.05  # K
+    # the time recovered from the progress clock (integral of tau ds) is the observed time
     np.testing.assert_allclose(ds.time_ratio.values, 1.0, rtol=1e-3)
     # and the same times at equal progress, against the observed clock
     ok = np.isfinite(ds.sea_time.values) & np.isfinite(ds.observed_time.values)
@@ -93,10 +97,16 @@ def test_log_mean_alignment_is_one(h2_case):
 
 
 def test_alignment_bounds_and_entropy_rises(h2_case):
-    """Cauchy-Schwarz bounds cos theta to [-1, 1]; any SEA path raises the entropy (dS/dt = V R x.M.x)."""
+    """Cauchy-Schwarz bounds cos theta to [-1, 1]; any SEA path raises the entropy (dS/dt = V R x.M.x).
+
+    The alignment is stored as computed (never clipped), so the bound is tested on the raw value,
+    allowing a few ulp of round-off."""
     ds = h2_case[4]
     a = ds.alignment.values
-    assert np.all((a >= -1.0) & (a <= 1.0))
+    assert np.isfinite(a).any()
+    assert np.all(np.abs(a[np.isfinite(a)]) <= 1.0 + 4 * np.finfo(float).eps)
+    # and the bound is reached only by the log-mean metric (mass action itself)
+    assert np.nanmax(a[list(ds.metric.values).index("fitted-scalar")]) < 1.0 - 1e-6
     assert np.all(ds.sea_entropy_decrease.values <= 1e-12)
     ratio = ds.entropy_production_ratio.values
     assert np.all((ratio >= 0) & (ratio <= 1 + 1e-12))
@@ -136,8 +146,12 @@ def test_arrhenius_fit_recovers_the_mobility_that_made_the_rates():
     assert b2[0] > 0 and m2[0] > 0  # rates rising with T: a positive activation temperature
 
 def test_diagonal_fit_is_nonnegative(h2_case):
-    """de Donder: x_j q_j >= 0 for a reversible reaction, so m_j = sum w x q / sum w x^2 >= 0."""
-    gas, info, rel, _, ds = h2_case
+    """de Donder: x_j q_j >= 0 for a reversible reaction, so m_j = sum w x q / sum w x^2 >= 0.
+
+    Without the trace factor (trace_level 0) the metric is a plain constant, and its mobility is
+    that closed form of weighted least squares."""
+    gas, info, rel, idx, _ = h2_case
+    ds = sea.compare(gas, info, rel, idx, sea.SeaSettings(metrics=("fitted-diagonal",), trace_level=0.0))
     m = ds.mobility.sel(metric="fitted-diagonal").values
     rev = info.reversible & np.isfinite(m)
     assert rev.sum() >= 20
@@ -268,7 +282,11 @@ def test_isomerisation_closed_forms(isomer):
     t = lm.sea_time.values[ok]
     expected = (t - t[0]) * (kf + kr)
     measured = np.log((y[0] - y_eq) / (y - y_eq))
-    np.testing.assert_allclose(measured[1:], expected[1:], rtol=2e-4, atol=1e-6)
+    # the path resolves ln N to its rtol (1e-6), so ln(y - y_eq) only to rtol y/(y - y_eq): a
+    # thousand times that at the last progress level (1 - 1e-6): 10x that is allowed besides the
+    # time's 2e-4 relative and 1e-6 absolute (Simpson's rule on the progress clock)
+    resolution = 10 * 1e-6 * y / np.abs(y - y_eq)
+    assert np.all(np.abs(measured[1:] - expected[1:]) <= 2e-4 * expected[1:] + 1e-6 + resolution[1:])
 
     on = ds.sel(metric="onsager")
     m = float(on.mobility.values[0])  # r_eq = kf c_A,eq, mol m-3 s-1
@@ -496,7 +514,7 @@ def test_global_newton_solves_the_step_where_simplified_newton_fails():
     lu = scipy_bdf.lu_factor(np.eye(3) - c * toy.jac(0.0, y_predict))
     plain = scipy_bdf.solve_bdf_system(toy.rhs, 0.0, y_predict, c, psi, lu, scipy_bdf.lu_solve, scale, tol)
     assert not plain[0]  # the case the rescue is for
-    result = _GlobalNewton(toy)._iterate(0.0, y_predict, c, psi, scale, tol)
+    result = _GlobalNewton(toy, fun=toy.rhs, jac=toy.jac)._iterate(0.0, y_predict, c, psi, scale, tol)
     assert result is not None
     y, d, n_iter = result
     np.testing.assert_allclose(y, y_predict + d, rtol=0, atol=1e-14)
@@ -536,7 +554,8 @@ def test_trace_scaling_is_mass_action_like(h2o2_gas):
     m = np.full(rx.size, 2.0)
     eps_level = 1e-8
     system = _System(gas, "constant-pressure", float(n @ gas.molecular_weights) / 1e3, n, active, rx,
-                     info.reversible, float("nan"), ct.one_atm, 1500.0, _Mobility("constant", m), eps_level)
+                     info.reversible, float("nan"), ct.one_atm, 1500.0, _Mobility("constant", m),
+                     np.full(active.size, eps_level * n.sum()))
     system.state(system.z_of(n))
     h = gas.species_index("H")
     uses_h_reac = gas.reactant_stoich_coeffs[h] > 0
@@ -604,7 +623,8 @@ def test_analytic_jacobian_against_finite_differences(h2o2_gas, reactor, kind, r
     mob = _Mobility("constant", m) if kind == "constant" else _Mobility("arrhenius", m, rng.uniform(0, 2e4, rx.size), 1500.0)
     mass = float(n @ gas.molecular_weights) / 1e3
     volume = mass / gas.density
-    system = _System(gas, reactor, mass, n, active, rx, info.reversible, volume, gas.P, 1400.0, mob, 1e-8)
+    system = _System(gas, reactor, mass, n, active, rx, info.reversible, volume, gas.P, 1400.0, mob,
+                     np.full(active.size, 1e-8 * n.sum()))
     if route == "cantera":
         system._compiled = None
     elif system._compiled is None:
@@ -620,6 +640,21 @@ def test_analytic_jacobian_against_finite_differences(h2o2_gas, reactor, kind, r
         fd[:, i] = (system.rhs(0.0, up) - system.rhs(0.0, down)) / (2 * d)
     scale = np.abs(J).max(axis=1, keepdims=True)
     np.testing.assert_allclose(J / scale, fd / scale, atol=1e-6)
+
+    # the progress clock's Jacobian (``_kernels.clock_transform``: the product rule on tau f with
+    # the Hessian of the potential on the reactor's constraint), against central differences of
+    # dz/ds; Phi_eq set above the state's potential by a tenth of its size
+    system.state(z)
+    system.phi_eq = system.potential() + 0.1 * abs(system.potential())
+    JF = system.clock_jac(0.0, z)
+    for i in range(z.size):
+        d = 1e-6 * max(1.0, abs(z[i]))
+        up, down = z.copy(), z.copy()
+        up[i] += d
+        down[i] -= d
+        fd[:, i] = (system.clock_rhs(0.0, up) - system.clock_rhs(0.0, down)) / (2 * d)
+    scale = np.abs(JF).max(axis=1, keepdims=True)
+    np.testing.assert_allclose(JF / scale, fd / scale, atol=1e-6)
 
 
 @pytest.mark.parametrize("reactor", ["isolated", "constant-pressure", "isothermal"])
@@ -648,7 +683,7 @@ def test_compiled_right_hand_side_is_cantera_s(h2o2_gas, reactor, kind, trace):
                else _Mobility("arrhenius", m, rng.uniform(0, 2e4, rx.size), 1500.0))
         mass = float(n @ gas.molecular_weights) / 1e3
         system = _System(gas, reactor, mass, n, active, rx, info.reversible, mass / gas.density, gas.P, 1400.0,
-                         mob, trace)
+                         mob, np.full(active.size, trace * n.sum()))
         assert system._compiled is not None
         for z in (system.z_of(n), system.z_of(n) + rng.normal(0.0, 0.3, active.size)):
             fast = system.rhs(0.0, z)
@@ -657,6 +692,14 @@ def test_compiled_right_hand_side_is_cantera_s(h2o2_gas, reactor, kind, trace):
             slow = system.rhs(0.0, z)
             system._compiled = compiled_rates
             assert t_fast == pytest.approx(system.temperature, rel=1e-13)
+            np.testing.assert_allclose(fast, slow, rtol=0, atol=1e-9 * np.abs(slow).max())
+            # and on the progress clock, where Cantera's mixture entropy enters through Phi_eq - Phi
+            system.state(z)
+            system.phi_eq = system.potential() + 0.1 * abs(system.potential())
+            fast = system.clock_rhs(0.0, z)
+            system._compiled = None
+            slow = system.clock_rhs(0.0, z)
+            system._compiled = compiled_rates
             np.testing.assert_allclose(fast, slow, rtol=0, atol=1e-9 * np.abs(slow).max())
 
 
@@ -709,6 +752,10 @@ def test_compiled_path_loop_follows_scipy_s_bdf(h2o2_gas, reactor):
     assert (ours.sea_status.values == "ok").all(), ours.sea_reason.values
     np.testing.assert_array_equal(np.isfinite(ours.sea_time.values), np.isfinite(reference.sea_time.values))
     both = np.isfinite(ours.sea_time.values) & (ours.progress.values > settings.start_progress)
+    # the last levels (to 1 - 1e-6) are ill-conditioned, dt/dlambda ~ tau/(1 - lambda): round-off
+    # apart in the state moved the time there by 1.7e-4 (measured at the stop level 0.999999, the
+    # angle 5e-8 rad); compared up to progress 0.999
+    both &= ours.progress.values <= 0.999
     np.testing.assert_allclose(ours.sea_time.values[both], reference.sea_time.values[both], rtol=1e-7)
     np.testing.assert_allclose(ours.sea_temperature.values[both], reference.sea_temperature.values[both], atol=1e-5)
     apart = sea.fisher_rao_angle(ours.sea_mole_fraction.values[both], reference.sea_mole_fraction.values[both])

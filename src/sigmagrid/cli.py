@@ -154,7 +154,8 @@ def cmd_estimate(args) -> int:
 def cmd_bench(args) -> int:
     from . import bench
 
-    results = bench.run(quick=args.quick, report=lambda line: print(line, file=sys.stderr, flush=True))
+    results = bench.run(quick=args.quick, report=lambda line: print(line, file=sys.stderr, flush=True),
+                        only=tuple(args.only or bench.SECTIONS))
     print(json.dumps(results, indent=1, default=float) if args.json else bench.format_table(results))
     return 0
 
@@ -219,6 +220,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("bench", help="measure the pipeline against bare Cantera (prints figures)")
     p.add_argument("--quick", action="store_true", help="under a minute instead of under 15 minutes")
     p.add_argument("--json", action="store_true", help="JSON for scripts instead of a table")
+    p.add_argument("--only", action="append", choices=("observe", "sea", "query", "grid", "large"),
+                   help="measure only this part (repeatable; default all)")
     p.set_defaults(func=cmd_bench)
 
     p = sub.add_parser("show", help="readable summary of a case file")

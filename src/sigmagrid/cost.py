@@ -34,6 +34,7 @@ class Estimate:
     cores: int
     cases_per_job: int
     kernel_load_seconds: float = 0.0  # s per job: the compiled SEA kernels (numba), if SEA needs them
+    sea_seconds_per_case: tuple[float, ...] = ()  # s, each sampled case's sea_comparison_wall_time
 
     @property
     def cpu_seconds(self) -> float:
@@ -99,19 +100,22 @@ def estimate(config: dict, n_sample: int = 4, cores: int = 2, report=lambda s: N
     if settings.sea is not None and any(m != "log-mean" for m in settings.sea.metrics):
         # every job loads the compiled SEA kernels once: time it here, outside the sampled cases
         kernel_seconds = _kernel_load_seconds()
-    seconds, sizes = [], []
+    seconds, sizes, sea_seconds = [], [], []
     with tempfile.TemporaryDirectory() as tmp:
         for k, case in enumerate(sample, 1):
             target = Path(tmp) / f"{case.case_id}.nc"
             started = time.perf_counter()
-            runner.run_case_to_file(case, gas, info, settings, meta, target)
+            ds = runner.run_case_to_file(case, gas, info, settings, meta, target)
             seconds.append(time.perf_counter() - started)
+            if "sea_comparison_wall_time" in ds:
+                sea_seconds.append(float(ds["sea_comparison_wall_time"]))
             sizes.append(target.stat().st_size)
             report(f"[{k}/{len(sample)}] {case.label}: {seconds[-1]:.2f} s, {sizes[-1] / 1e6:.2f} MB")
     return Estimate(n_cases=len(grid.cases), n_species=gas.n_species, n_reactions=gas.n_reactions,
                     sample_labels=tuple(c.label for c in sample), seconds_per_case=tuple(seconds),
                     bytes_per_case=statistics.mean(sizes), cores=cores,
-                    cases_per_job=int(config["batch"]["cases_per_job"]), kernel_load_seconds=kernel_seconds)
+                    cases_per_job=int(config["batch"]["cases_per_job"]), kernel_load_seconds=kernel_seconds,
+                    sea_seconds_per_case=tuple(sea_seconds))
 
 
 def format_estimate(e: Estimate) -> str:
@@ -119,6 +123,9 @@ def format_estimate(e: Estimate) -> str:
         f"grid: {e.n_cases} cases; mechanism {e.n_species} species, {e.n_reactions} reactions",
         f"sampled {len(e.seconds_per_case)} cases: {min(e.seconds_per_case):.2f} to "
         f"{max(e.seconds_per_case):.2f} s per case (mean {statistics.mean(e.seconds_per_case):.2f} s)",
+        *([f"of which the SEA comparison: mean {statistics.mean(e.sea_seconds_per_case):.2f} s per case "
+           f"({statistics.mean(e.sea_seconds_per_case) / statistics.mean(e.seconds_per_case):.0%} of a case; "
+           "sea.enabled: false saves it)"] if e.sea_seconds_per_case else []),
         f"per job: {JOB_START_SECONDS:.1f} s start-up"
         + (f" + {e.kernel_load_seconds:.1f} s to load the compiled SEA kernels" if e.kernel_load_seconds else "")
         + f", {e.cases_per_job} cases per job",

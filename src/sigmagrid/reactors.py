@@ -30,7 +30,7 @@ import numpy as np
 
 from .diagnostics import SignAudit, SignTracker
 from .mechanism import MechanismInfo
-from .units import GAS_CONSTANT
+from .units import GAS_CONSTANT, KMOL
 
 REACTOR_TYPES = ("isolated", "constant-pressure", "isothermal")
 _HELD_FIXED = {"isolated": "UV", "constant-pressure": "HP", "isothermal": "TP"}
@@ -106,6 +106,11 @@ class Relaxation:
     energy_drift: float = float("nan")  # relative change of the held U (isolated) or H (constant-pressure)
     wall_seconds: float = 0.0
     notes: list[str] = field(default_factory=list)
+    # with keep_rates: x = A/(RT) (1) and q (mol m-3 s-1) of every reaction at every step, as
+    # recorded (the SEA comparison's fits need them at full resolution; recomputing them from the
+    # states cost it a tenth of a second on gri30)
+    disequilibrium: np.ndarray | None = None
+    net_rate: np.ndarray | None = None
 
     @property
     def volume(self) -> np.ndarray:
@@ -287,6 +292,7 @@ def relax(
     pressure: float,
     mole_fractions,
     settings: RelaxSettings = RelaxSettings(),
+    keep_rates: bool = False,
 ) -> Relaxation:
     """Relax one initial state to equilibrium and integrate the entropy production of each reaction.
 
@@ -296,6 +302,8 @@ def relax(
     info : :func:`sigmagrid.mechanism.describe` of the same mechanism.
     reactor_type : one of :data:`REACTOR_TYPES`.
     temperature : K; pressure : Pa; mole_fractions : dict or array.
+    keep_rates : keep x and q of every reaction at every step (``Relaxation.disequilibrium``,
+        ``net_rate``), n_steps x n_reactions x 16 bytes.
 
     Returns
     -------
@@ -312,7 +320,7 @@ def relax(
     energy0 = _held_energy(reactor_type, gas)
     tracker = SignTracker(info)
 
-    path = _PathRecorder(gas, reactor_type, mass, tracker)
+    path = _PathRecorder(gas, reactor_type, mass, tracker, keep_rates)
     potentials = path.potentials
     record = path.record
 
@@ -431,8 +439,10 @@ class _PathRecorder:
 
     CHUNK = 256
 
-    def __init__(self, gas: ct.Solution, reactor_type: str, mass: float, tracker: SignTracker):
+    def __init__(self, gas: ct.Solution, reactor_type: str, mass: float, tracker: SignTracker,
+                 keep_rates: bool = False):
         self.gas, self.reactor_type, self.mass, self.tracker = gas, reactor_type, mass, tracker
+        self._kept = ([], []) if keep_rates else None  # chunks of x and q
         self.times, self.potentials = [], []
         self._states, self._S, self._V, self._P = [], [], [], []
         ns, nr = gas.n_species, gas.n_reactions
@@ -472,6 +482,9 @@ class _PathRecorder:
         V = np.asarray(self._V[-n:])
         # J/kmol * kmol/(m3 s) = J/(m3 s): the kmol factors cancel in A q; A = -delta G
         sigma = -self._dg_buf[:n] * self._q_buf[:n] / T[:, None]
+        if self._kept is not None:
+            self._kept[0].append(-self._dg_buf[:n] / (ct.gas_constant * T[:, None]))
+            self._kept[1].append(self._q_buf[:n] * KMOL)
         total = sigma.sum(axis=1)
         self.tracker.update(sigma, total)
         self._sigma_total.append(total)
@@ -491,7 +504,10 @@ class _PathRecorder:
                     density=states[:, 1], mass_fractions=states[:, 2:],
                     entropy=np.asarray(self._S), potential=np.asarray(self.potentials),
                     entropy_production_total=np.concatenate(self._sigma_total) if self._sigma_total else np.zeros(0),
-                    entropy_produced=self.produced)
+                    entropy_produced=self.produced,
+                    **({} if self._kept is None else
+                       {"disequilibrium": np.concatenate(self._kept[0]) if self._kept[0] else None,
+                        "net_rate": np.concatenate(self._kept[1]) if self._kept[1] else None}))
 
 
 class _HeldEquilibrium:

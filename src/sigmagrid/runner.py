@@ -92,7 +92,8 @@ def run_case(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInf
     """Relax one case and build its Dataset. Never raises for a failing case: status says it."""
     mole_fractions = case.mole_fractions()
     try:
-        relaxation = relax(gas, info, case.reactor, case.temperature, case.pressure, mole_fractions, settings.relax)
+        relaxation = relax(gas, info, case.reactor, case.temperature, case.pressure, mole_fractions, settings.relax,
+                           keep_rates=settings.sea is not None)
     except Exception as err:  # noqa: BLE001 - recorded, not hidden
         relaxation = _failed_relaxation(gas, case, f"{type(err).__name__}: {err}", settings.relax)
     relaxation.notes.extend(case_notes(relaxation, gas))

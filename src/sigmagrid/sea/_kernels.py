@@ -162,6 +162,7 @@ def evaluate(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
              nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref):
     """The state of log amounts z and the SEA rates there.
 
+    eps: (active species,) mol, the trace amounts of the state factor (all 0: none).
     nu_ptr, nu_species, nu_coef: the net stoichiometry of the SEA reactions by reaction (CSR,
     full species index); side_rows/side_cols: (reaction, active species) pairs of the reactants
     (rows < nr) and of the products (rows >= nr). kind: 0 constant, 1 Arrhenius mobility.
@@ -199,11 +200,12 @@ def evaluate(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
         mu[k] = h_rt[k] - s_r[k] + lnp + np.log(xk if xk > 1e-300 else 1e-300)
     # trace factors of each side, prod N/(N + eps): products, not sums of logarithms (a
     # logarithm per (reaction, species) pair was most of this function's time)
-    if eps > 0:
+    trace = eps.max() > 0.0
+    if trace:
         ratio = np.empty(na)
         for i in range(na):
             v = n[active[i]]
-            ratio[i] = v / (v + eps)
+            ratio[i] = v / (v + eps[i])
         for p in range(side_rows.size):
             sides[side_rows[p]] *= ratio[side_cols[p]]
     for j in range(nr):
@@ -212,7 +214,7 @@ def evaluate(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
             xj -= nu_coef[p] * mu[nu_species[p]]
         x[j] = xj
         mob[j] = m[j] if kind == 0 else m[j] * np.exp(-b[j] * (1.0 / T - 1.0 / t_ref))
-        if eps > 0:
+        if trace:
             gr = sides[j]
             gp = sides[nr + j]
             both = gr * gp
@@ -270,6 +272,7 @@ def _time_jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, press
     f = np.zeros(active.size)
     if T < 0:
         return -1.0, V, n, h_rt, mu, x, q, dT, f
+    trace = eps.max() > 0.0
     ns = n.size
     na = active.size
     total = 0.0
@@ -303,7 +306,7 @@ def _time_jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, press
         for p in range(nu_ptr[j], nu_ptr[j + 1]):
             du += nu_coef[p] * (h_rt[nu_species[p]] - 1.0)
         du /= T
-        if eps > 0:
+        if trace:
             gr = sides[j]
             gp = sides[nr + j]
             af = onset[j] if xj > 0 else 0.0  # a(x) and a(-x) as evaluate() computed them
@@ -330,12 +333,12 @@ def _time_jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, press
                 k = active_pos[nu_species[p2]]
                 if k >= 0:
                     J[i, k] -= nij * a * nu_coef[p2]
-    if eps > 0:
+    if trace:
         # nu diag(m x dg/dln g_r) reac^T + nu diag(m x dg/dln g_p) prod^T, each column k scaled by
         # d ln(N_k/(N_k + eps))/dz_k, one (reaction, species) side pair at a time
         slope = np.empty(na)  # d ln(N_k/(N_k + eps)) / d z_k
         for kcol in range(na):
-            r = eps / n[active[kcol]]
+            r = eps[kcol] / n[active[kcol]]
             slope[kcol] = r / (1.0 + r)
         w_side = np.empty(2 * nr)  # m x dg/dln g_r (reactant rows) and m x dg/dln g_p (product rows)
         for j in range(nr):
@@ -794,7 +797,8 @@ def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale
     """Steps of one SEA path until a stop (the codes STEP_*), at most rec_t.size accepted steps per
     call. The clock is s = -ln(1 - lambda) from the start (see :func:`clock_rhs`). The state (fs,
     istate, D, yv, J, LU, piv) carries over between calls; each accepted step is recorded (clock,
-    its start, BDF's step and order and differences, the progress, tau s) for the dense output
+    its start, BDF's step and order and differences, the progress, tau s at the step's end and
+    middle) for the dense output
     and the time. ``dynamics._sea_path`` documents the choices; this mirrors it line by line."""
     n = yv.size
     active = H[1]
@@ -1017,7 +1021,19 @@ def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale
         rec_order[nrec] = order
         rec_D[nrec, :order + 1] = D[:order + 1]
         rec_lam[nrec] = lam
-        rec_tau[nrec] = fs[F_TAU]
+        rec_tau[nrec, 0] = fs[F_TAU]
+        # tau at the step's midpoint on BDF's interpolant (scipy's BdfDenseOutput), for Simpson's rule
+        h_now = fs[F_H]
+        t_mid = 0.5 * (fs[F_TOLD] + fs[F_T])
+        for i in range(n):
+            y_try[i] = D[0, i]
+        p = 1.0
+        for j in range(1, order + 1):
+            p *= (t_mid - (fs[F_T] - h_now * (j - 1))) / (h_now * j)
+            for i in range(n):
+                y_try[i] += D[j, i] * p
+        istate[I_RHS] += 1
+        rec_tau[nrec, 1] = fs[F_TAU] if _rhs(y_try, H, L, fs, work) else np.nan
         nrec += 1
         if lam >= lam_stop:
             return STEP_DONE, nrec

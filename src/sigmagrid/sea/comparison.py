@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import time
+
 import numpy as np
 import cantera as ct
 import xarray as xr
@@ -11,10 +13,10 @@ from ..diagnostics import evaluate
 from ..mechanism import MechanismInfo
 from ..units import KMOL, PER_KMOL
 from .dynamics import _Mobility, _Path, _System, _sea_path, lagging_species
-from .metrics import (alignment, fisher_rao_angle, fit_arrhenius, fit_diagonal, fit_quality, fit_scalar,
-                      log_mean_mobility, path_weights, progress_grid)
+from .metrics import (alignment, fisher_rao_angle, fit_arrhenius, fit_quality, log_mean_mobility, path_weights,
+                      progress_grid, trace_factors)
 from .settings import N_SLOW_COMPARED, PROGRESS_LEVELS, SeaSettings
-from .spectra import kinetics_spectrum, sea_spectrum
+from .spectra import kinetics_spectrum, mode_carriers, sea_spectrum
 
 
 def _empty(gas, relaxation, sample_index, settings, reason):
@@ -64,14 +66,19 @@ def compare(gas: ct.Solution, info: MechanismInfo, relaxation, sample_index, set
     NaN-filled with the reason.
     """
     settings.check()
+    started = time.perf_counter()
     sample_index = np.asarray(sample_index, dtype=int)
     try:
-        return _compare(gas, info, relaxation, sample_index, settings)
+        ds = _compare(gas, info, relaxation, sample_index, settings)
     except _Degenerate as why:
-        return _empty(gas, relaxation, sample_index, settings, str(why))
+        ds = _empty(gas, relaxation, sample_index, settings, str(why))
     except Exception as err:  # recorded with the case, never raised into the grid run
         detail = str(err).splitlines()[0][:300] if str(err) else ""
-        return _empty(gas, relaxation, sample_index, settings, f"SEA comparison failed: {type(err).__name__}: {detail}")
+        ds = _empty(gas, relaxation, sample_index, settings, f"SEA comparison failed: {type(err).__name__}: {detail}")
+    ds["sea_comparison_wall_time"] = ((), time.perf_counter() - started, {
+        "units": "s", "long_name": "wall time of the whole steepest-entropy-ascent comparison of the case",
+        "comment": "fits, alignment, every path and the near-equilibrium check; sea_wall_time is one path's"})
+    return ds
 
 
 class _Degenerate(Exception):
@@ -118,10 +125,11 @@ def _compare(gas, info, rel, sample_index, settings):
 
     # observed path: affinities and rates at full resolution
 
-    st = evaluate(gas, rel.temperature, rel.density, rel.mass_fractions)
-    x_all = st.disequilibrium
-    q_all = st.net_rate.copy()
-    rf_all, rr_all = st.forward_rate, st.reverse_rate
+    if rel.disequilibrium is not None and rel.net_rate is not None:
+        x_all, q_all = rel.disequilibrium, rel.net_rate  # as the relaxation recorded them
+    else:
+        st = evaluate(gas, rel.temperature, rel.density, rel.mass_fractions)
+        x_all, q_all = st.disequilibrium, st.net_rate
     present = rel.mass_fractions > 0
     valid = (sparse.csr_matrix((~present).astype(float)) @ sparse.csc_matrix(participates.astype(float))).toarray() == 0
     valid &= included[None, :]
@@ -133,16 +141,58 @@ def _compare(gas, info, rel, sample_index, settings):
     eq = rel.equilibrium
     gas.TPX = eq.temperature, eq.pressure, eq.mole_fractions
     r_eq = gas.forward_rates_of_progress * KMOL
+    n_eq_all = rel.mass * gas.Y / mw  # mol
 
     # Fits and alignment work on physical reactions: the members of a duplicate group share x and
     # add their rates (a member with a negative pre-exponential factor alone has x q < 0)
     groups = _Groups(info.duplicate_group)
     xg, qg = x_all[:, groups.reps], groups.total(q_all)
     validg, includedg = valid[:, groups.reps], included[groups.reps]
-    lm_g = log_mean_mobility(groups.total(rf_all), groups.total(rr_all), xg)
     r_eq_g = groups.total(r_eq[None, :])[0]
     m_onsager = _floored(r_eq_g, includedg, settings.mobility_floor)  # the onsager metric as integrated
     temps = rel.temperature
+
+    # The constant and Arrhenius metrics are m g(state): the trace factor g of the integrated
+    # dynamics (``trace_factors``) along the observed path, so that what is fitted, aligned and
+    # linearized is the metric the paths integrate
+    # mol per active species: the trace level of the total amount. (The trace level of each
+    # species' own equilibrium amount would leave the linearization Onsager's, but then the onsager
+    # path of methane stalls at progress 0.02, as with no factor at all: species absent at the
+    # start and nearly absent at equilibrium are the ones that need it.)
+    eps = np.full(active.size, settings.trace_level * float(n_start.sum()))
+    sides = (gas.reactant_stoich_coeffs[active][:, groups.reps] > 0,
+             gas.product_stoich_coeffs[active][:, groups.reps] > 0)
+    amounts = rel.mass * np.clip(rel.mass_fractions[:, active], 0.0, None) / mw[active]  # mol
+    g_path = trace_factors(amounts, xg, *sides, eps)
+    gx = g_path * xg  # the regressor of q under a metric m g
+
+    # the alignment is taken over the reactions with detailed balance: an irreversible reaction's
+    # observed rate is not of the form M x under any metric (its x q can be negative); its share
+    # of the entropy production is reported separately
+    aligned = includedg & info.reversible[groups.reps]
+    xa, qa = np.where(aligned[None, :], xg, 0.0), np.where(aligned[None, :], qg, 0.0)
+    xq_a = (xa * qa).sum(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        q2_over_g = np.where(qa != 0, qa * qa / g_path, 0.0)  # inf where g = 0 and q != 0: infinite cost
+    gx2_a = g_path * xa * xa
+    # the fits' weighted sums, once for all metrics: q ~ m g x
+    ww = w[:, None] * validg
+    wq2 = float((ww * qg * qg).sum())
+    sum_gxq = (ww * gx * qg).sum(axis=0)
+    sum_gx2 = (ww * gx * gx).sum(axis=0)
+
+    def quality_constant(m):  # 1 - sum w (q - m g x)^2 / sum w q^2, expanded in the sums above
+        m = np.where(includedg, np.nan_to_num(m), 0.0)
+        return 1.0 - (wq2 - 2.0 * (m @ sum_gxq) + (m * m) @ sum_gx2) / wq2 if wq2 > 0 else float("nan")
+
+    def align_constant(m):  # the alignment along the path for a metric m g, m constant
+        m = np.where(aligned, np.nan_to_num(m), 0.0)
+        pos = m > 0
+        cost = q2_over_g[:, pos] @ (1.0 / m[pos])
+        cost = np.where((q2_over_g[:, ~pos] != 0).any(axis=1), np.inf, cost)  # rate without mobility
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out = xq_a / (np.sqrt(cost) * np.sqrt(gx2_a @ m))
+        return np.where(np.isinf(cost) & np.isfinite(xq_a), 0.0, out)
 
     mobility = {}  # per reaction (members of a group carry the group's value)
     mobility_g = {}  # per group, what the SEA dynamics uses
@@ -152,40 +202,44 @@ def _compare(gas, info, rel, sample_index, settings):
     align_full = {}
     for metric in settings.metrics:
         if metric == "log-mean":
-            M_path = lm_g
+            # Lambda x is mass action's net rate: the log-mean metric aligns to 1 and fits exactly
+            # wherever the reverse rates obey detailed balance, which its path checks
             mobility_g[metric] = np.full(groups.n, np.nan)
-        elif metric == "onsager":
-            mobility_g[metric] = np.where(includedg, m_onsager, np.nan)
-            M_path = np.broadcast_to(mobility_g[metric], xg.shape)
+            st = evaluate(gas, rel.temperature, rel.density, rel.mass_fractions)  # the one-way rates
+            lm = np.where(aligned[None, :], log_mean_mobility(groups.total(st.forward_rate),
+                                                              groups.total(st.reverse_rate), xg), 0.0)
+            align_full[metric] = alignment(xa, qa, lm)
+            quality[metric] = fit_quality(qg, np.where(aligned[None, :], lm * xa, qg), w, validg)
+            mobility[metric] = mobility_g[metric][groups.inverse]
+            continue
+        if metric == "onsager":
+            m = m_onsager
         elif metric == "fitted-scalar":
-            m = float(_clip_negative(np.array([fit_scalar(xg, qg, w, validg)]), np.array([True]), metric,
-                                     notes)[0])
-            mobility_g[metric] = np.where(includedg, m, np.nan)
-            M_path = np.broadcast_to(mobility_g[metric], xg.shape)
+            m = float(_clip_negative(np.array([sum_gxq.sum() / sum_gx2.sum()]), np.array([True]), metric, notes)[0])
+            m = np.full(groups.n, m)
         elif metric == "fitted-diagonal":
-            m = _clip_negative(fit_diagonal(xg, qg, w, validg), includedg, metric, notes)
-            m = _floored(np.nan_to_num(m), includedg, settings.mobility_floor)
-            mobility_g[metric] = np.where(includedg, m, np.nan)
-            M_path = np.broadcast_to(mobility_g[metric], xg.shape)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                m = np.where(sum_gx2 > 0, sum_gxq / np.where(sum_gx2 > 0, sum_gx2, 1.0), np.nan)
+            m = _floored(np.nan_to_num(_clip_negative(m, includedg, metric, notes)), includedg,
+                         settings.mobility_floor)
         else:
-            m_ref, b = fit_arrhenius(xg, qg, w, validg, temps, eq.temperature)
+            m_ref, b = fit_arrhenius(gx, qg, w, validg, temps, eq.temperature)
             m_ref = _floored(np.nan_to_num(_clip_negative(m_ref, includedg, metric, notes)), includedg,
                              settings.mobility_floor)
             params["m_ref"] = np.where(includedg, m_ref, np.nan)
             params["b"] = np.where(includedg, b, np.nan)
+            factor = np.exp(np.clip(-np.outer(1.0 / temps - 1.0 / eq.temperature, np.nan_to_num(params["b"])),
+                                    -700, 700))
+            Mc = np.where(includedg[None, :], np.nan_to_num(params["m_ref"]) * factor * g_path, 0.0)
+            quality[metric] = fit_quality(qg, Mc * xg, w, validg)
+            align_full[metric] = alignment(xa, qa, np.where(aligned[None, :], Mc, 0.0))
             mobility_g[metric] = np.full(groups.n, np.nan)
-            M_path = params["m_ref"][None, :] * np.exp(np.clip(-np.outer(1.0 / temps - 1.0 / eq.temperature,
-                                                                         params["b"]), -700, 700))
+            mobility[metric] = mobility_g[metric][groups.inverse]
+            continue
+        mobility_g[metric] = np.where(includedg, m, np.nan)
         mobility[metric] = mobility_g[metric][groups.inverse]
-        Mc = np.where(includedg[None, :] & np.isfinite(M_path), M_path, 0.0)
-        quality[metric] = fit_quality(qg, Mc * xg, w, validg)
-        # the alignment is taken over the reactions with detailed balance: an irreversible reaction's
-        # observed rate is not of the form M x under any metric (its x q can be negative); its share
-        # of the entropy production is reported separately
-        aligned = includedg & info.reversible[groups.reps]
-        xi = np.where(aligned[None, :], xg, 0.0)
-        qi = np.where(aligned[None, :], qg, 0.0)
-        align_full[metric] = alignment(xi, qi, np.where(aligned[None, :], Mc, 0.0))
+        quality[metric] = quality_constant(m)
+        align_full[metric] = align_constant(m)
     for key in ("m_ref", "b"):
         if key in params:
             params[key] = params[key][groups.inverse]
@@ -235,26 +289,15 @@ def _compare(gas, info, rel, sample_index, settings):
             reactions = rx_g
         try:
             system = _System(gas, rel.reactor, rel.mass, n_start, active, reactions, info.reversible[reactions],
-                             volume, pressure, float(rel.temperature[k_start]), mob, settings.trace_level)
+                             volume, pressure, float(rel.temperature[k_start]), mob,
+                             eps if metric != "log-mean" else None)
             z0 = system.z_of(n_start)
             system.state(z0)
             phi_start = system.potential()
             if phi_eq_sea is None:
                 phi_eq_sea = _equilibrium_potential(gas, rel.reactor, rel.mass)
             path = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings)
-            level = settings.trace_level
-            while path.status == "failed" and metric != "log-mean" and 0 < level < 1e-8:
-                # a failed constant-metric path is retried with a higher trace level
-                level *= 1e3
-                system.eps = level * system.n_ref
-                retry = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings)
-                retry.wall += path.wall
-                retry.rhs_evaluations += path.rhs_evaluations
-                retry.jacobian_evaluations += path.jacobian_evaluations
-                retry.reason = (f"retried with trace level {level:.0e} after: {path.reason}"
-                                + (f"; {retry.reason}" if retry.reason else ""))
-                path = retry
-            path.trace_level = level if metric != "log-mean" else float("nan")
+            path.trace_level = settings.trace_level if metric != "log-mean" else float("nan")
             reached = np.flatnonzero(np.isfinite(path.time))
             if path.status in ("incomplete", "budget") and mob.m is not None and reached.size:
                 # name the species the metric cannot bring to equilibrium in the time or steps given
@@ -273,7 +316,7 @@ def _compare(gas, info, rel, sample_index, settings):
     # near-equilibrium spectra
     spectra = {"sea": np.full(settings.n_modes, np.nan), "kinetics": np.full(settings.n_modes, np.nan)}
     slow_diff = {m: float("nan") for m in settings.metrics}
-    spectrum_reason = ""
+    spectrum_reason = spectrum_note = ""
     try:
         gas.TPX = eq.temperature, eq.pressure, eq.mole_fractions
         n_eq = rel.mass * gas.Y / mw
@@ -281,8 +324,12 @@ def _compare(gas, info, rel, sample_index, settings):
         # a system at the equilibrium's own energy, one reaction per physical reaction
         ref_system = _System(gas, rel.reactor, rel.mass, n_eq, active, rx_g, info.reversible[rx_g],
                              eq.volume if rel.reactor == "isolated" else volume, pressure, eq.temperature,
-                             _Mobility("constant", m_onsager[gi]))
-        sea_rates = sea_spectrum(ref_system, n_eq, m_onsager[gi])
+                             _Mobility("constant", r_eq_g[gi]))
+        # Onsager's linear theory: the metric diag(r_eq) itself. The paths' floor and trace factor
+        # are left out here: at equilibrium they would give species far below the trace level
+        # (C2 species of methane at 1e-28) modes of 1e18 s-1 or slow them by N_eq/eps, and
+        # either wrecks the slow end of the spectrum (gri30: every slow mode 100 % off)
+        sea_rates = sea_spectrum(ref_system, n_eq, r_eq_g[gi])
         rank = sea_rates.size
         kin_rates = kinetics_spectrum(gas, info, settings.irreversible, rel.reactor, eq.temperature, eq.pressure,
                                       eq.mole_fractions, eq.volume, rank,
@@ -300,6 +347,8 @@ def _compare(gas, info, rel, sample_index, settings):
                 r_m = sea_spectrum(ref_system, n_eq, np.nan_to_num(np.clip(mobility_g[metric][gi], 0, None)))
             if r_m.size >= n_cmp and n_cmp > 0:
                 slow_diff[metric] = float(np.max(np.abs(r_m[:n_cmp] - kin_rates[:n_cmp]) / kin_rates[:n_cmp]))
+        spectrum_note = _slow_mode_note(ref_system, n_eq, r_eq_g[gi], kin_rates, n_cmp, rx_g, info,
+                                        settings.irreversible)
     except Exception as err:
         spectrum_reason = f"near-equilibrium check failed: {type(err).__name__}: {str(err)[:300]}"
 
@@ -307,7 +356,7 @@ def _compare(gas, info, rel, sample_index, settings):
         "grid": grid, "mobility": mobility, "params": params, "quality": quality, "align_full": align_full,
         "ep_ratio": ep_ratio, "obs_time": obs_time, "obs_temp": obs_temp, "obs_x": obs_x, "paths": paths,
         "t_start": t_start, "lam_start": lam_start, "spectra": spectra, "slow_diff": slow_diff,
-        "spectrum_reason": spectrum_reason, "included": included, "eq_T": eq.temperature,
+        "spectrum_reason": spectrum_reason, "spectrum_note": spectrum_note, "included": included, "eq_T": eq.temperature,
         "irr_share": irr_share,
     }
     return _assemble(gas, rel, sample_index, settings, result, "")
@@ -355,6 +404,39 @@ def _floored(m, included, floor):
     m = np.asarray(m, float)
     largest = float(np.max(np.where(included, m, 0.0), initial=0.0))
     return np.where(included, np.maximum(m, floor * largest), m)
+
+
+#: a slow mode whose onsager rate is further than this (relative) from the kinetics' is explained
+SLOW_MODE_TOLERANCE = 0.1
+
+
+def _slow_mode_note(system, n_eq, mobility, kin_rates, n_cmp, reactions, info, treatment) -> str:
+    """One statement on the slow modes where the onsager linearization and the kinetics disagree
+    by more than ``SLOW_MODE_TOLERANCE``: which reactions carry each (share of the mode's rate,
+    ``spectra.mode_carriers``), marking irreversible ones (given a thermodynamic reverse, or left
+    out, in the SEA dynamics). "" where they agree."""
+    rates, shares = mode_carriers(system, n_eq, mobility, n_cmp)
+    k = min(rates.size, kin_rates.size, n_cmp)
+    parts = []
+    for i in range(k):
+        off = abs(rates[i] - kin_rates[i]) / kin_rates[i]
+        if not off > SLOW_MODE_TOLERANCE:
+            continue
+        order = np.argsort(-shares[i])
+        carriers = []
+        for j in order[:3]:
+            if not shares[i, j] > 0.05:
+                break
+            r = reactions[j]
+            tags = [f"irreversible, {'given a thermodynamic reverse' if treatment == 'reversible' else 'left out'}"
+                    ] if not info.reversible[r] else []
+            carriers.append(f"#{r} {info.equations[r]} ({shares[i, j]:.0%}{'; ' + ', '.join(tags) if tags else ''})")
+        irreversible = any(not info.reversible[reactions[j]] for j in order[:3] if shares[i, j] > 0.05)
+        why = ("irreversible reactions carry it, and their reverse in the SEA dynamics is thermodynamic, not the "
+               "mechanism's" if irreversible else "no irreversible reaction carries it")
+        parts.append(f"slow mode {i + 1} ({kin_rates[i]:.3g} s-1 in the kinetics) is {off:.0%} off in the onsager "
+                     f"linearization; {why}; carried by {', '.join(carriers) or 'many reactions'}")
+    return "; ".join(parts)
 
 
 def _equilibrium_potential(gas, reactor, mass):
@@ -431,6 +513,8 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
                     ratio[i, k] = (t_sea - sea_t[i][0]) / (t_o - obs_t[0])
         if res["spectrum_reason"]:
             attrs_extra["near_equilibrium_reason"] = res["spectrum_reason"]
+        if res["spectrum_note"]:
+            attrs_extra["near_equilibrium_note"] = res["spectrum_note"]
 
     def var(dims, data, units, long_name, **attrs):
         return (dims, data, {"units": units, "long_name": long_name, **attrs})

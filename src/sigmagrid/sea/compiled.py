@@ -77,16 +77,16 @@ def _compile():
     coef = np.zeros((1, 15))
     coef[:, 0], coef[:, 1], coef[:, 8] = 1000.0, 2.5, 2.5
     _kernels.rhs(np.zeros(1), one_f.copy(), one_i, 1.0, coef, 101325.0, 2, 0.0, 101325.0, 300.0, 0.0,
-                 np.zeros(2, np.int64), one_i, one_f, one_i, one_i, 1, 0.0, 0, np.zeros(1), np.zeros(1), 1.0,
+                 np.zeros(2, np.int64), one_i, one_f, one_i, one_i, 1, np.zeros(1), 0, np.zeros(1), np.zeros(1), 1.0,
                  np.empty(1))
     _kernels.jacobian(np.zeros(1), one_f.copy(), one_i, 1.0, coef, 101325.0, 2, 0.0, 101325.0, 300.0, 0.0,
-                      np.zeros(2, np.int64), one_i, one_f, one_i, one_i, 1, 0.0, 0, np.zeros(1), np.zeros(1), 1.0,
+                      np.zeros(2, np.int64), one_i, one_f, one_i, one_i, 1, np.zeros(1), 0, np.zeros(1), np.zeros(1), 1.0,
                       one_i, np.zeros(1), np.empty((1, 1)))
     _kernels.settle(one_f.copy(), one_i, np.ones((1, 1)), one_f, coef, 101325.0, 2, 0.0, 101325.0, 300.0, 0.0,
                     np.empty(3))
     # the path loop, with the argument types dynamics._run_compiled gives it (numba compiles per type)
     head = (one_f.copy(), one_i, 1.0, coef, 101325.0, 2, 0.0, 101325.0)
-    tail = (0.0, np.zeros(2, np.int64), one_i, one_f, one_i, one_i, 1, 0.0, 0, np.zeros(1), np.zeros(1), 1.0)
+    tail = (0.0, np.zeros(2, np.int64), one_i, one_f, one_i, one_i, 1, np.zeros(1), 0, np.zeros(1), np.zeros(1), 1.0)
     fs, istate = np.zeros(_kernels.N_FLOAT_STATE), np.zeros(11, np.int64)
     D, y, J, LU, piv = np.zeros((8, 1)), np.zeros(1), np.zeros((1, 1)), np.zeros((1, 1)), np.zeros(1, np.int64)
     fs[_kernels.F_TGUESS] = 300.0
@@ -96,7 +96,7 @@ def _compile():
     _kernels.bdf_path(head, tail, one_i, np.zeros(1), np.ones((1, 1)), one_f, np.ones((1, 1)), one_f, one_f,
                       coefficients, coefficients, coefficients, 1e-5, 1e-7, 0.03, 0.0, 0.0, 1.0, 0.0, 0.0, 1.0, 1,
                       0.0, 1e-5, 8, 10, 10, 1.0, True, True, 30.0, fs, istate, D, y, J, LU, piv, np.empty(1), np.empty(1),
-                      np.empty(1), np.empty(1, np.int64), np.empty((1, 6, 1)), np.empty(1), np.empty(1))
+                      np.empty(1), np.empty(1, np.int64), np.empty((1, 6, 1)), np.empty(1), np.empty((1, 2)))
     # the progress clock as the Python route calls it
     _kernels.clock_rhs(np.zeros(1), *head, 300.0, *tail, 1.0, np.empty(1))
     _kernels.clock_jacobian(np.zeros(1), *head, 300.0, *tail, one_i, np.zeros(1), 1.0, np.empty((1, 1)))
@@ -121,7 +121,7 @@ class CompiledRates:
             nu_ptr=np.concatenate([[0], np.cumsum(np.bincount(cols, minlength=nu.shape[1]))]).astype(np.int64),
             nu_species=rows.astype(np.int64), nu_coef=nu[rows, cols].copy(),
             side_rows=np.ascontiguousarray(side_rows, np.int64), side_cols=np.ascontiguousarray(side_cols, np.int64),
-            nr=int(nu.shape[1]), eps=float(eps), kind=0 if kind == "constant" else 1,
+            nr=int(nu.shape[1]), eps=np.ascontiguousarray(eps, float), kind=0 if kind == "constant" else 1,
             m=np.ascontiguousarray(m, float), b=np.ascontiguousarray(b if b is not None else np.zeros(len(m)), float),
             t_ref=float(t_ref) if np.isfinite(t_ref) else 1.0)
         a = self.args_fixed
@@ -145,38 +145,33 @@ class CompiledRates:
             return None
         return out, float(props[0]), float(props[1]), float(props[2])
 
-    def jacobian(self, z, T_guess, eps):
+    def jacobian(self, z, T_guess):
         """(d(dz/dt)/dz, T); T < 0 where the energy constraint has no solution."""
         J = np.empty((z.size, z.size))
-        T = self.kernels.jacobian(z, *self._head, float(T_guess), *self._tail_at(eps), self._active_pos,
+        T = self.kernels.jacobian(z, *self._head, float(T_guess), *self._tail, self._active_pos,
                                   self._nu_sum, J)
         return J, T
 
-    def __call__(self, z, T_guess, eps):
+    def __call__(self, z, T_guess):
         """(dz/dt, T); T < 0 where the energy constraint has no solution."""
         out = np.empty(z.size)
-        T = self.kernels.rhs(z, *self._head, float(T_guess), *self._tail_at(eps), out)
+        T = self.kernels.rhs(z, *self._head, float(T_guess), *self._tail, out)
         return out, T
 
-    def clock(self, z, T_guess, eps, phi_eq):
+    def clock(self, z, T_guess, phi_eq):
         """(dz/ds, T, tau s) on the progress clock (``_kernels.clock_rhs``); T < 0 where the state
         has no value."""
         out = np.empty(z.size)
-        T, tau = self.kernels.clock_rhs(z, *self._head, float(T_guess), *self._tail_at(eps), float(phi_eq), out)
+        T, tau = self.kernels.clock_rhs(z, *self._head, float(T_guess), *self._tail, float(phi_eq), out)
         return out, T, tau
 
-    def clock_jacobian(self, z, T_guess, eps, phi_eq):
+    def clock_jacobian(self, z, T_guess, phi_eq):
         """(d(dz/ds)/dz, T); T < 0 where the state has no value."""
         J = np.empty((z.size, z.size))
-        T = self.kernels.clock_jacobian(z, *self._head, float(T_guess), *self._tail_at(eps), self._active_pos,
+        T = self.kernels.clock_jacobian(z, *self._head, float(T_guess), *self._tail, self._active_pos,
                                         self._nu_sum, float(phi_eq), J)
         return J, T
 
-    def path_args(self, eps):
-        """(head, tail, active_pos, nu_sum): the arguments of the compiled path loop
-        (``_kernels.bdf_path``) with the trace level eps (mol)."""
-        return self._head, self._tail_at(eps), self._active_pos, self._nu_sum
-
-    def _tail_at(self, eps):
-        """The trailing arguments with the trace level eps (mol): a retried path raises it."""
-        return self._tail if eps == self._tail[7] else self._tail[:7] + (float(eps),) + self._tail[8:]
+    def path_args(self):
+        """(head, tail, active_pos, nu_sum): the arguments of the compiled path loop (``_kernels.bdf_path``)."""
+        return self._head, self._tail, self._active_pos, self._nu_sum

@@ -134,7 +134,7 @@ class _System:
     """
 
     def __init__(self, gas, reactor, mass, n_start, active, reactions, reversible_in, volume, pressure,
-                 temperature, mobility: _Mobility, trace_level: float = 0.0):
+                 temperature, mobility: _Mobility, trace_amounts=None):
         self.gas = gas
         self.reactor = reactor
         self.mass = mass  # kg
@@ -169,10 +169,13 @@ class _System:
             self._nu_reac = _WeightedProduct(self.nu_a, self.reac_a)
             self._nu_prod = _WeightedProduct(self.nu_a, self.prod_a)
         self._nr_in = len(reactions)
-        self.eps = trace_level * self.n_ref  # mol
+        # mol, per active species: the amounts below which the state factor scales a constant mobility
+        self.eps = np.zeros(len(active)) if trace_amounts is None else np.asarray(trace_amounts, float)
+        self._trace_on = bool(self.eps.max(initial=0.0) > 0)
         self._cache = None  # species energies and heat capacities at the last temperature
         self.phi_eq = float("nan")  # J/K, the potential the progress clock runs towards (set by _sea_path)
         self.tau = float("nan")  # s, (Phi_eq - Phi)/(dPhi/dt) at the last clock_rhs state
+        self._last_clock_jac = None  # the last Jacobian the Cantera route could form
         self.n_rhs = 0
         self.n_jac = 0
         self._set(n_start, newton=False)
@@ -285,7 +288,7 @@ class _System:
                           rf * np.exp(np.clip(-x, -745.0, 700.0)))
             return log_mean_mobility(rf, rr, x) * x, rr, None
         m = mob.m if mob.kind == "constant" else mob.m * np.exp(-mob.b * (1.0 / T - 1.0 / mob.t_ref))
-        if self.eps > 0:
+        if self._trace_on:
             # g = g_r g_p + g_r (1 - g_p) a(x) + g_p (1 - g_r) a(-x), of which one a is zero
             gr, gp = self._g_reac, self._g_prod
             both = gr * gp
@@ -306,7 +309,7 @@ class _System:
         running forward), so a species absent at the start is still formed. q = m g x is smooth
         and monotone in x, x q >= 0, and nothing changes where the species are well above eps.
         """
-        if not self.eps > 0:
+        if not self._trace_on:
             return
         ratio = self.eps / n[self.active]
         # both sides in one product, summed over the few species of each side (a dense
@@ -320,7 +323,7 @@ class _System:
         if self._compiled is not None:
             if not z.max() < 50.0:  # as in amounts(): a trial state far off
                 return np.full(z.size, np.nan)
-            out, T = self._compiled(z, self.temperature, self.eps)
+            out, T = self._compiled(z, self.temperature)
             if not T > 0:
                 return np.full(z.size, np.nan)  # no temperature meets the constraint: a shorter step
             self.temperature = T
@@ -340,7 +343,7 @@ class _System:
         if self._compiled is not None:
             if not z.max() < 50.0:
                 return np.full(z.size, np.nan)
-            out, T, tau = self._compiled.clock(z, self.temperature, self.eps, self.phi_eq)
+            out, T, tau = self._compiled.clock(z, self.temperature, self.phi_eq)
             if not T > 0:
                 return np.full(z.size, np.nan)
             self.temperature, self.tau = T, tau
@@ -363,18 +366,28 @@ class _System:
             self.n_jac += 1
             if not z.max() < 50.0:
                 raise _OffConstraint("amounts out of range")
-            J, T = self._compiled.clock_jacobian(z, self.temperature, self.eps, self.phi_eq)
-            if not T > 0:
-                raise _OffConstraint("no value of the progress clock here")
+            J, T = self._compiled.clock_jacobian(z, self.temperature, self.phi_eq)
+            if not T > 0:  # a trial state past the end: as below
+                if self._last_clock_jac is None:
+                    raise _OffConstraint("no value of the progress clock here")
+                return self._last_clock_jac
             self.temperature = T
+            self._last_clock_jac = J
             return J
-        J = self.jac(s, z)
-        n, T, V = self.state(z)
-        x, rf = self._kinetics(T)
-        q, _, _ = self._rates(T, x, rf)
-        deficit, rate = self.phi_eq - self.potential(), _R * V * float(x @ q)
+        try:
+            J = self.jac(s, z)
+        except (_OffConstraint, ct.CanteraError):
+            J = None
+        n, T, V = self.state(z) if J is not None else (None, None, None)
+        x, rf = self._kinetics(T) if J is not None else (None, None)
+        q = self._rates(T, x, rf)[0] if J is not None else None
+        deficit, rate = (self.phi_eq - self.potential(), _R * V * float(x @ q)) if J is not None else (0.0, 0.0)
         if not (deficit > 0 and rate > 0):
-            raise _OffConstraint("no value of the progress clock here")
+            # a trial state of BDF's past the end (no entropy left to produce): its Newton
+            # iteration only needs a Jacobian near this one, and scipy's BDF cannot take "none"
+            if self._last_clock_jac is None:
+                raise _OffConstraint("no value of the progress clock here")
+            return self._last_clock_jac
         g = self.gas
         na = n[self.active]
         dT, _ = self._constraint_derivatives(n, T, V)
@@ -382,6 +395,7 @@ class _System:
         out = np.empty_like(J)
         _clock_transform()(V * (self.nu_a @ q) / na, J, na, w, g.standard_enthalpies_RT[self.active], dT, T,
                            float(n.sum()), compiled.REACTOR_CODES[self.reactor], deficit, rate, out)
+        self._last_clock_jac = out
         return out
 
     def _constraint_derivatives(self, n, T, V):
@@ -413,7 +427,7 @@ class _System:
         if self._compiled is not None:
             if not z.max() < 50.0:
                 raise _OffConstraint("amounts out of range")
-            J, T = self._compiled.jacobian(z, self.temperature, self.eps)
+            J, T = self._compiled.jacobian(z, self.temperature)
             if T > 0:
                 self.temperature = T
                 return J
@@ -434,7 +448,7 @@ class _System:
             core += np.outer(nu @ (rr * self.nu_sum - q * self.order_sum), dlnv)
             core += np.outer(nu @ (q * dlnk + rr * du_T), dT)
         else:
-            if self.eps > 0:
+            if self._trace_on:
                 gmix = self._g_mix
                 af, ab = _onsets(x)
                 gr, gp = self._g_reac, self._g_prod
@@ -608,8 +622,10 @@ class _GlobalNewton:
     ARGS = ("fun", "t_new", "y_predict", "c", "psi", "LU", "solve_lu", "scale", "tol")
 
     def __init__(self, system: "_System", max_iter: int = _FULL_NEWTON_ITERATIONS,
-                 max_log_step: float = _MAX_LOG_STEP, hard_steps: int = _HARD_STEPS):
+                 max_log_step: float = _MAX_LOG_STEP, hard_steps: int = _HARD_STEPS, fun=None, jac=None):
         self.system = system
+        self.fun = fun or system.clock_rhs  # the right-hand side BDF integrates, and its Jacobian
+        self.jac = jac or system.clock_jac
         self.max_iter = max_iter
         self.max_log_step = max_log_step
         self.hard_steps = hard_steps
@@ -670,7 +686,7 @@ class _GlobalNewton:
         self.last_jac = None
         y = y_predict.copy()
         d = np.zeros_like(y)
-        f = system.clock_rhs(t, y)
+        f = self.fun(t, y)
         if not np.all(np.isfinite(f)):
             return None
         r = c * f - psi - d
@@ -678,7 +694,7 @@ class _GlobalNewton:
         eye = np.eye(y.size)
         for k in range(self.max_iter):
             try:
-                J = system.clock_jac(t, y)
+                J = self.jac(t, y)
             except (_OffConstraint, ct.CanteraError):
                 return None
             self.last_jac = J
@@ -692,7 +708,7 @@ class _GlobalNewton:
             alpha = min(1.0, self.max_log_step / big) if big > 0 else 1.0
             while True:
                 y_try = y + alpha * dy
-                f_try = system.clock_rhs(t, y_try)
+                f_try = self.fun(t, y_try)
                 if np.all(np.isfinite(f_try)):
                     d_try = d + alpha * dy
                     r_try = c * f_try - psi - d_try
@@ -806,7 +822,8 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
     status, reason, ts, lams, taus, dens, steps, u_err, raw_err, worst_drop = run(
         system, z0, lam_of, phi_start_path, settings, rtol, atol, s_limit, started, project_state, u0,
         _Balance(elements, target, e_scale, E_active, project.target))
-    elapsed = _elapsed_time(np.asarray(ts), np.concatenate([[tau0], np.asarray(taus, float)]))
+    taus = np.asarray(taus, float).reshape(-1, 2)
+    elapsed = _elapsed_time(np.asarray(ts), np.concatenate([[tau0], taus[:, 0]]), taus[:, 1])
     e_err = 0.0
 
     ts_a, lams_a = np.asarray(ts), np.maximum.accumulate(np.asarray(lams))
@@ -844,15 +861,16 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements,
                  jacobian_evaluations=system.n_jac - jac_before)
 
 
-def _elapsed_time(clock: np.ndarray, tau: np.ndarray) -> np.ndarray:
+def _elapsed_time(clock: np.ndarray, tau: np.ndarray, tau_mid: np.ndarray) -> np.ndarray:
     """Time (s) at each accepted step of a path on the progress clock: the integral of tau ds,
-    with tau = dt/ds (s) taken exponential in s between steps (the log-mean rule, exact where the
-    path relaxes at one rate, and never below the smaller or above the larger end value)."""
+    tau = dt/ds (s), by Simpson's rule over each step with tau at its ends and middle; where the
+    middle has no value, with tau exponential in s over the step (the log-mean of its ends)."""
     ds = np.diff(clock)
     a, b = tau[:-1], tau[1:]
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = np.log(b / a)
-        mean = np.where(np.abs(ratio) > 1e-8, (b - a) / ratio, 0.5 * (a + b))
+        log_mean = np.where(np.abs(ratio) > 1e-8, (b - a) / ratio, 0.5 * (a + b))
+    mean = np.where(np.isfinite(tau_mid), (a + 4.0 * tau_mid + b) / 6.0, log_mean)
     return np.concatenate([[0.0], np.cumsum(ds * mean)])
 
 
@@ -913,14 +931,18 @@ def _run_scipy(system, z0, lam_of, phi_start, settings, rtol, atol, s_limit, sta
             if not np.isfinite(system.clock_rhs(solver.t, z_p)).all():  # tau at the accepted state
                 status, reason = _stalled_or_failed(lams[-1], solver.t, "no entropy production left")
                 break
+            tau_end = system.tau
+            dense = solver.dense_output()
+            mid = system.clock_rhs(solver.t, dense(0.5 * (solver.t_old + solver.t)))  # for Simpson's rule
+            tau_mid = system.tau if np.isfinite(mid).all() else np.nan
             u_err = max(u_err, abs(energy - u0) / max(abs(u0), 1e-300))
             raw_err = max(raw_err, raw)
             worst_drop = max(worst_drop, (phi_prev - phi) / lam_of.drive)
             phi_prev = phi
             ts.append(solver.t)
             lams.append(lam_of(phi))
-            taus.append(system.tau)
-            dens.append((0.0, solver.dense_output()))
+            taus.append((tau_end, tau_mid))
+            dens.append((0.0, dense))
             status, reason = _stop(lams[-1], ts[-1], steps, started, lam_stop, s_limit, settings)
             if status is not None:
                 break
@@ -946,7 +968,7 @@ def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, s_limit, 
     halvings of the entropy guard, fails the path where the scipy route would try Cantera's.
     """
     k = system._compiled.kernels
-    H, L, active_pos, nu_sum = system._compiled.path_args(system.eps)
+    H, L, active_pos, nu_sum = system._compiled.path_args()
     na = z0.size
     max_order = k.MAX_ORDER
     kappa = np.array([0, -0.1850, -1 / 9, -0.0823, -0.0415, 0])  # scipy's BDF (NDF) coefficients
@@ -965,7 +987,7 @@ def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, s_limit, 
     LU = np.empty((na, na))
     piv = np.empty(na, np.int64)
     rec = (np.empty(_CHUNK), np.empty(_CHUNK), np.empty(_CHUNK), np.empty(_CHUNK, np.int64),
-           np.empty((_CHUNK, max_order + 1, na)), np.empty(_CHUNK), np.empty(_CHUNK))
+           np.empty((_CHUNK, max_order + 1, na)), np.empty(_CHUNK), np.empty((_CHUNK, 2)))
     elements = np.ascontiguousarray(balance.elements, float)
     ts, lams, taus, dens = [0.0], [lam_of(phi_start)], [], []
     status, reason = None, ""
@@ -985,7 +1007,7 @@ def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, s_limit, 
             order = int(rec[3][i])
             ts.append(float(rec[0][i]))
             lams.append(float(rec[5][i]))
-            taus.append(float(rec[6][i]))
+            taus.append((float(rec[6][i, 0]), float(rec[6][i, 1])))
             dens.append((0.0, (float(rec[1][i]), float(rec[0][i]), float(rec[2][i]), order,
                                rec[4][i, :order + 1].copy())))
         steps = int(istate[k.I_STEPS])

@@ -7,6 +7,7 @@ x = A/(RT) is dimensionless, mobilities are mol m-3 s-1.
 from __future__ import annotations
 
 import numpy as np
+from scipy import sparse
 
 def progress_grid(n: int, start: float, end: float) -> np.ndarray:
     """Shared progress grid, 1: Chebyshev-spaced between ``start`` and ``end`` (dense at both ends)."""
@@ -46,7 +47,10 @@ def log_mean_mobility(forward: np.ndarray, reverse: np.ndarray, disequilibrium: 
 
 
 def alignment(x: np.ndarray, q: np.ndarray, mobility: np.ndarray) -> np.ndarray:
-    """cos theta_G = x.q / (sqrt(q.G.q) sqrt(x.M.x)) for diagonal M = G^-1, 1 (in [-1, 1]).
+    """cos theta_G = x.q / (sqrt(q.G.q) sqrt(x.M.x)) for diagonal M = G^-1, 1.
+
+    In [-1, 1] by the Cauchy-Schwarz inequality in the inner product of G; returned as computed,
+    unclipped (round-off can pass the bound by a few ulp).
 
     x : (..., nr) disequilibrium, 1; q : (..., nr) net rates, mol m-3 s-1; mobility : (..., nr).
     A reaction with zero mobility but a nonzero rate has infinite cost: cos theta = 0 there.
@@ -59,8 +63,7 @@ def alignment(x: np.ndarray, q: np.ndarray, mobility: np.ndarray) -> np.ndarray:
     num = (x * q).sum(axis=-1)
     with np.errstate(invalid="ignore", divide="ignore"):
         out = num / (np.sqrt(cost) * np.sqrt(drive))
-    out = np.where(np.isinf(cost) & np.isfinite(num), 0.0, out)
-    return np.clip(out, -1.0, 1.0)
+    return np.where(np.isinf(cost) & np.isfinite(num), 0.0, out)
 
 
 def path_weights(kind: str, time: np.ndarray, potential: np.ndarray, progress: np.ndarray) -> np.ndarray:
@@ -96,17 +99,20 @@ def fit_diagonal(x: np.ndarray, q: np.ndarray, w: np.ndarray, valid: np.ndarray)
         return np.where(den > 0, num / np.where(den > 0, den, 1.0), np.nan)
 
 
-def fit_arrhenius(x, q, w, valid, temperature, reference_temperature):
+def fit_arrhenius(x, q, w, valid, temperature, reference_temperature, n_bins=128, n_moments=5):
     """Per-reaction fit of m_j(T) = m_ref,j exp(-b_j (1/T - 1/T_ref)) to q_j ~ m_j(T) x_j.
 
     For fixed b_j the best m_ref,j is closed-form; b_j (K) maximises the explained weighted sum of
     squares, found by a coarse scan and golden-section refinement within |b| (1/T_min - 1/T_max) <= 40.
     Returns (m_ref mol m-3 s-1, b K). With no temperature span (isothermal) b = 0.
 
-    Cost: the sums over the path take the weighted products w x q and w x^2 once; a scan point
-    (one b for all reactions) needs one exponential per sample, and each golden-section iteration
-    evaluates one new point per reaction (the other is the last iteration's, the golden ratio's
-    property). On a 4 200-sample gri30 path: 1.3 s -> 0.3 s.
+    The sums over the path depend on each sample only through u = 1/T - 1/T_ref, so the samples
+    are gathered into ``n_bins`` bins of u once, each carrying the moments sum (u - u_c)^p / p!
+    (p < ``n_moments``) of the weighted products w x q and w x^2 about its centre u_c: then
+    sum_i a_i exp(-u_i b) = sum_c exp(-u_c b) sum_p (-b)^p M_p,c, a Taylor series whose first
+    left-out term is below (|b| du/2)^5/120 <= 8e-7 of the sum (|b| du <= 40/128). A score costs
+    bins x reactions instead of samples x reactions. On 4 200 synthetic samples x 325 reactions
+    (scratch comparison with the exact sums): 0.51 -> 0.07 s, b and m_ref equal to 6e-6.
     """
     rows = w > 1e-12 * w.max()  # rows without weight change nothing
     x, q, w, valid, temperature = x[rows], q[rows], w[rows], valid[rows], temperature[rows]
@@ -119,6 +125,17 @@ def fit_arrhenius(x, q, w, valid, temperature, reference_temperature):
         return m, np.zeros(nr)
     wxq = ww * x * q  # (samples, reactions)
     wxx = ww * x * x
+    edges = np.linspace(u.min(), u.max(), n_bins + 1)
+    centre = 0.5 * (edges[:-1] + edges[1:])
+    which = np.clip(np.searchsorted(edges, u, side="right") - 1, 0, n_bins - 1)
+    du = u - centre[which]
+    powers = [np.ones_like(du)]
+    for p in range(1, n_moments):
+        powers.append(powers[-1] * du / p)
+    cols = np.arange(u.size)
+    gathers = [sparse.csr_matrix((pw, (which, cols)), shape=(n_bins, u.size)) for pw in powers]
+    mq = np.stack([gm @ wxq for gm in gathers])  # (moments, bins, reactions)
+    mx = np.stack([gm @ wxx for gm in gathers])
 
     def from_sums(num, den):  # explained sum of squares per reaction, and m_ref
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -126,22 +143,19 @@ def fit_arrhenius(x, q, w, valid, temperature, reference_temperature):
             s = np.where(den > 0, num * num / np.where(den > 0, den, 1.0), -np.inf)
         return s, m
 
+    def sums(moments, b):  # sum_i a_ij exp(-u_i b_j), b: (reactions,)
+        arg = np.clip(-np.multiply.outer(centre, b), -700.0, 700.0)
+        series = moments[-1]
+        for p in range(moments.shape[0] - 2, -1, -1):  # Horner in (-b)
+            series = moments[p] + series * (-b)
+        return (np.exp(arg) * series).sum(axis=0)
+
+    def score(b):
+        return from_sums(sums(mq, b), sums(mx, 2.0 * b))
+
     bmax = 40.0 / span
-    # |u b| stays below 700 (no overflow of exp) unless the reference temperature lies far outside
-    # the path's: the clip is then needed, and otherwise saved (a sixth of each evaluation)
-    clip = float(np.abs(u).max()) * bmax > 700.0
-
-    def score(b):  # b: (reactions,)
-        arg = np.multiply.outer(-u, b)
-        g = np.exp(np.clip(arg, -700.0, 700.0, out=arg) if clip else arg)
-        return from_sums(np.einsum("ij,ij->j", wxq, g), np.einsum("ij,ij->j", wxx, g * g))
-
-    def score_all(b):  # one b for every reaction
-        g = np.exp(np.clip(-u * b, -700.0, 700.0))
-        return from_sums(g @ wxq, (g * g) @ wxx)
-
     scan = np.linspace(-bmax, bmax, 17)
-    scores = np.array([score_all(b)[0] for b in scan])  # (17, nr)
+    scores = np.array([score(np.full(nr, b))[0] for b in scan])  # (17, nr)
     best = np.argmax(scores, axis=0)
     lo = scan[np.clip(best - 1, 0, scan.size - 1)]
     hi = scan[np.clip(best + 1, 0, scan.size - 1)]
@@ -165,6 +179,33 @@ def fit_arrhenius(x, q, w, valid, temperature, reference_temperature):
         b = np.where(keep, scan[best], b)
         m = score(b)[1]
     return m, b
+
+
+def trace_factors(amounts: np.ndarray, x: np.ndarray, reactants: np.ndarray, products: np.ndarray,
+                  eps: float) -> np.ndarray:
+    """The state factor g of a constant or Arrhenius metric's mobility, 1 (the metric is m g).
+
+    g = g_r g_p + g_r (1 - g_p) a(x) + g_p (1 - g_r) a(-x), with g_r, g_p the products of
+    N_k / (N_k + eps) over each side's species and a(u) = exp(-1/u) for u > 0, else 0: near its
+    partial equilibrium a reaction is scaled by both sides, as mass action's one-way rates are;
+    driven hard, only by the side it consumes. 1 wherever the species are well above eps (mol).
+
+    amounts : (n, ns) mol; x : (n, nr); reactants, products : (ns, nr) bool, the species of each
+    side (those of the SEA dynamics); eps : mol, per species or one for all (0: g = 1). Returns (n, nr).
+    """
+    eps = np.asarray(eps, float)
+    if not eps.max(initial=0.0) > 0:
+        return np.ones(np.shape(x))
+    with np.errstate(divide="ignore"):
+        log_ratio = np.log(amounts / (amounts + eps))  # -inf for an absent species: g = 0 there
+    log_ratio = np.where(np.isfinite(log_ratio), log_ratio, -1e300)
+    gr = np.exp(log_ratio @ reactants.astype(float))
+    gp = np.exp(log_ratio @ products.astype(float))
+    both = gr * gp
+    u = np.abs(x)
+    with np.errstate(divide="ignore", over="ignore"):
+        onset = np.where(u > 1.0 / 746.0, np.exp(-1.0 / np.maximum(u, 1e-300)), 0.0)
+    return both + (np.where(x > 0, gr, gp) - both) * onset
 
 
 def fit_quality(q: np.ndarray, predicted: np.ndarray, w: np.ndarray, valid: np.ndarray) -> float:

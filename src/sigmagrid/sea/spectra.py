@@ -50,6 +50,31 @@ def sea_spectrum(system: _System, n_eq, mobility: np.ndarray) -> np.ndarray:
     return np.sort(np.sort(rates)[::-1][:rank])
 
 
+def mode_carriers(system: _System, n_eq, mobility: np.ndarray, n_modes: int) -> tuple[np.ndarray, np.ndarray]:
+    """The slowest ``n_modes`` relaxation rates of :func:`sea_spectrum` (s-1, ascending) and the
+    share of each reaction in each, (n_modes, reactions of ``system``), rows summing to 1.
+
+    With S = G^1/2 P G^1/2 and P = sum_j m_j b_j b_j^T, a unit eigenvector u of rate k splits as
+    k = sum_j m_j (b_j . G^1/2 u)^2: reaction j's share of the mode (Rayleigh quotient by terms).
+    """
+    n, T, V = system.state(system.z_of(n_eq))
+    Hz = _hessian_z(system, n, T, V)
+    root = np.sqrt(n[system.active])
+    G = Hz * root[:, None] / root[None, :]
+    G = 0.5 * (G + G.T)
+    w, Q = np.linalg.eigh(G)
+    Gh = (Q * np.sqrt(np.clip(w, 0.0, None))) @ Q.T
+    m = np.where(np.isfinite(mobility) & (mobility > 0), mobility, 0.0)
+    B = system.nu_a / root[:, None] * np.sqrt(V)
+    S = Gh @ (B * m[None, :]) @ B.T @ Gh
+    rates, U = np.linalg.eigh(0.5 * (S + S.T))
+    keep = np.flatnonzero(rates > 1e-12 * max(rates.max(), 1e-300))[:n_modes]
+    proj = (B.T @ Gh @ U[:, keep]) ** 2 * m[:, None]  # (reactions, modes)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shares = (proj / proj.sum(axis=0, keepdims=True)).T
+    return rates[keep], shares
+
+
 def _reference_solution(gas: ct.Solution, info: MechanismInfo, treatment: str) -> ct.Solution:
     """The mechanism as the SEA dynamics sees it: irreversible reactions made reversible or dropped."""
     reactions = []
