@@ -108,4 +108,8 @@ def _sea_lines(ds) -> list[str]:
         lines.append("    slowest relaxation rates at equilibrium, kinetics (Cantera Jacobian) / onsager: "
                      + ", ".join(f"{k:.4g}/{s:.4g}" for k, s in
                                  zip(rates[:5], ds["relaxation_rates_sea"].values[:5])) + " s-1")
+    if a.get("near_equilibrium_note"):
+        lines.append(f"    near equilibrium: {a['near_equilibrium_note'][:400]}")
+    if "sea_comparison_wall_time" in ds:
+        lines.append(f"    the whole comparison took {float(ds['sea_comparison_wall_time']):.2f} s")
     return lines

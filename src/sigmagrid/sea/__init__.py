@@ -12,7 +12,7 @@ with the reactor's constraint fixing T. Five metric families are compared with t
 ==================  ==============================  =========================================
 name                mobility M, mol m-3 s-1         what it shows
 ==================  ==============================  =========================================
-log-mean            diag(Lambda_j(state))           mass action itself (a built-in check)
+log-mean            diag(Lambda_j(state))           mass action itself (an opt-in check)
 onsager             diag(r_eq,j) at equilibrium     linear theory carried far from equilibrium
 fitted-scalar       m I                             one isotropic mobility, fitted
 fitted-diagonal     diag(m_j)                       best constant metric
@@ -38,10 +38,11 @@ Choices that shape the numbers (all stored with the result):
 - A constant mobility relaxes a species of amount N at a rate ~ m/N; below ``trace_level`` times
   the total amount the mobility of its reactions is scaled like mass action's one-way rates, by
   factors N/(N + eps) of both sides near partial equilibrium and of the consumed side when driven
-  hard (``_System._trace``).
-- The clock: a metric's time scale can be ages longer than the kinetics'; when the needed step
-  falls below the resolution of the solver's clock the integration restarts from the last state
-  with its clock at zero.
+  hard (``metrics.trace_factors``). Every constant mobility is at least ``mobility_floor`` of the
+  metric's largest. Both are part of the stored metric: fits and alignment use them; the
+  near-equilibrium check is Onsager's diag(r_eq) without them.
+- The clock: a metric's time scale is arbitrary, so the paths run on s = -ln(1 - lambda), which
+  advances with the entropy (``_kernels.clock_rhs``); time is the integral of tau = dt/ds.
 - Only ideal-gas phases are compared (chemical potentials, energies and Hessian assume one).
 
 References
