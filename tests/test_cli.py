@@ -52,7 +52,7 @@ BAD_CASES = [
     ({"--temperature": "0"}, "--temperature", "> 0"),
     ({"--temperature": "-5"}, "--temperature", "> 0"),
     ({"--pressure": "0"}, "--pressure", "> 0"),
-    ({"--reactor": "adiabatic-ish"}, "--reactor", "allowed values: isolated, constant-pressure, isothermal"),
+    ({"--reactor": "adiabatic-ish"}, "--reactor", "(choose from 'isolated', 'constant-pressure', 'isothermal')"),
     ({"--max-time": "0"}, "--max-time", "> 0"),
     ({"--temperature": "nan"}, "--temperature", "finite"),
 ]
@@ -119,3 +119,30 @@ def test_bad_config_is_refused_by_the_workflow(workdir, line, field, message):
     assert f"sigmagrid: error: {field}: " in text and message in text, text[-2000:]
     assert "Traceback" not in text
     assert not (workdir / "results").exists() or not any((workdir / "results").rglob("*.nc"))
+
+
+def test_version_names_the_installed_cantera():
+    import cantera as ct
+
+    done = run_cli("--version")
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.startswith("sigmagrid ") and f"Cantera {ct.__version__}" in done.stdout
+
+
+def test_show_refuses_a_missing_file_and_a_summary_in_one_line(tmp_path):
+    missing = run_cli("show", str(tmp_path / "none.nc"))
+    assert missing.returncode == 2 and "Traceback" not in missing.stderr
+    assert missing.stderr.strip().splitlines() == [f"sigmagrid: error: file: '{tmp_path / 'none.nc'}' does not exist"]
+    summary = tmp_path / "summary.nc"
+    xr.Dataset(attrs={"title": "not a case"}).to_netcdf(summary)
+    refused = run_cli("show", str(summary))
+    assert refused.returncode == 2 and len(refused.stderr.strip().splitlines()) == 1
+    assert "is not a case file" in refused.stderr
+
+
+def test_case_into_a_missing_folder_is_one_line_and_exit_74(tmp_path):
+    out = tmp_path / "gone" / "one.nc"
+    done = run_cli("case", *GOOD, "--out", str(out), "--max-time", "1")
+    assert done.returncode == 74, done.stderr  # EX_IOERR of sysexits.h
+    assert "Traceback" not in done.stderr and len(done.stderr.strip().splitlines()) == 1
+    assert "the folder no longer exists" in done.stderr and not out.exists()

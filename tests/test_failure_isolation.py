@@ -132,3 +132,19 @@ def test_an_unreadable_case_file_is_listed_not_fatal(tmp_path):
     reason = dict(zip(summary["case"].values, summary["reason"].values))
     assert status[files[0].stem] == "failed" and reason[files[0].stem].startswith("unreadable case file")
     assert status[files[1].stem] == "relaxed"
+
+
+def test_run_and_case_exit_3_when_a_case_failed(tmp_path):
+    """A script can tell from the exit status that cases failed (cli.EXIT_CASES_FAILED); `batch`
+    exits 0 so that the workflow records the failure and goes on (test above)."""
+    _pathological(tmp_path)
+    (tmp_path / "config.yaml").write_text(yaml.safe_dump(CONFIG, sort_keys=False))
+    run = run_cli("run", "config.yaml", "--results", "results", cwd=tmp_path)
+    assert run.returncode == 3, run.stderr[-3000:]
+    assert "2 relaxed, 0 not-relaxed, 2 failed" in run.stdout
+    case = run_cli("case", "--mechanism", "pathological.yaml", "--reactor", "isolated", "--temperature", "3000",
+                   "--pressure", "101325", "--composition", "H2:1, O2:1, N2:3.76", "--out", "one.nc",
+                   "--max-time", "0.5", cwd=tmp_path)
+    assert case.returncode == 3, case.stderr[-3000:]
+    with xr.open_dataset(tmp_path / "one.nc") as ds:
+        assert ds.attrs["status"] == "failed"

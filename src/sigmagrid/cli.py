@@ -8,13 +8,17 @@
     sigmagrid summarize FILES... --summary S --table T
     sigmagrid plot FILE.nc [--out D]    per-case figures (more in cli_plot.py)
 
-Bad input ends with one line naming the field, exit status 2, and no output file. A results
-folder that refuses a file (full disk, read-only, gone) ends with one line, exit status 74.
+Exit status: 0 done (every case relaxed or not-relaxed: both are results); 2 bad input (one line
+naming the field, no output file); 3 ``run`` or ``case`` finished but one or more cases failed
+(their reasons are in cases.csv or the case file; ``batch`` exits 0 there, so that the workflow
+records the failed case and goes on); 74 a results folder or output file
+refused a write (full disk, read-only, gone: one line, finished files kept); 130 interrupted.
 """
 
 from __future__ import annotations
 
 import argparse
+import errno
 import json
 import os
 import sys
@@ -23,6 +27,7 @@ from pathlib import Path
 from .errors import InputError, StorageError
 
 EXIT_INPUT = 2
+EXIT_CASES_FAILED = 3
 EXIT_STORAGE = 74  # EX_IOERR of sysexits.h
 
 # One BLAS thread per process, unless the user asks otherwise: the matrices here are small (53 x
@@ -74,7 +79,7 @@ def cmd_run(args) -> int:
     counts = {s: int((summary["status"] == s).sum()) for s in ("relaxed", "not-relaxed", "failed")}
     print(f"summary: {args.results}/summary.nc, {args.results}/cases.csv; " +
           ", ".join(f"{v} {k}" for k, v in counts.items()))
-    return 0
+    return EXIT_CASES_FAILED if counts["failed"] else 0
 
 
 def cmd_batch(args) -> int:
@@ -127,14 +132,24 @@ def cmd_case(args) -> int:
     out = Path(args.out)
     if out.suffix != ".nc":
         raise InputError("--out", f"must name a .nc file, got '{out}'")
-    ds = runner.run_single(config, grid.cases[0], out)
+    if not out.parent.is_dir() or not os.access(out.parent, os.W_OK):
+        raise runner.storage_error(out.parent, PermissionError(errno.EACCES, "not writable"), str(out.name),
+                                   "nothing was run")
+    try:
+        ds = runner.run_single(config, grid.cases[0], out)
+    except OSError as err:
+        raise runner.storage_error(out.parent, err, str(out.name), "nothing was written") from None
     print(f"{out}: {ds.attrs['status']}" + (f" ({ds.attrs['reason']})" if ds.attrs["reason"] else ""))
-    return 0
+    return EXIT_CASES_FAILED if ds.attrs["status"] == "failed" else 0
 
 
 def cmd_show(args) -> int:
-    from . import report
+    from . import report, store
 
+    with store.open_input(args.file, "file") as ds:
+        if "case_id" not in ds.attrs:
+            raise InputError("file", f"'{args.file}' is not a case file (no case_id attribute); `show` reads the "
+                             "files under cases/, and xarray opens summaries and the others")
     print(report.describe_case(args.file, top=args.top))
     return 0
 
@@ -155,7 +170,7 @@ def cmd_bench(args) -> int:
     from . import bench
 
     results = bench.run(quick=args.quick, report=lambda line: print(line, file=sys.stderr, flush=True),
-                        only=tuple(args.only or bench.SECTIONS))
+                        only=tuple(args.only or bench.SECTIONS), workflow=args.workflow)
     print(json.dumps(results, indent=1, default=float) if args.json else bench.format_table(results))
     return 0
 
@@ -171,9 +186,25 @@ def _positive_int(text: str) -> int:
     return value
 
 
+def _available_cores() -> int:
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        return os.cpu_count() or 1
+
+
+def _version() -> str:
+    from importlib.metadata import version
+
+    from . import __version__
+
+    return f"sigmagrid {__version__} (Cantera {version('cantera')}, numba {version('numba')})"
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="sigmagrid", description="Relaxation of reacting mixtures to "
                                      "equilibrium with per-reaction entropy production, over a grid of cases.")
+    parser.add_argument("--version", action="version", version=_version())
     sub = parser.add_subparsers(dest="command", required=True)
 
     p = sub.add_parser("cases", help="list the cases a config expands to")
@@ -202,7 +233,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("case", help="run one case to one file")
     p.add_argument("--mechanism", required=True, help="mechanism file or a name Cantera ships")
     p.add_argument("--phase", default=None, help="ideal-gas phase of a file that defines several (default: the first)")
-    p.add_argument("--reactor", required=True, help="isolated, constant-pressure or isothermal")
+    p.add_argument("--reactor", required=True, choices=("isolated", "constant-pressure", "isothermal"),
+                   help="the reactor: held (U, V), (H, P) or (T, P)")
     p.add_argument("--temperature", type=float, required=True, help="initial temperature, K")
     p.add_argument("--pressure", type=float, required=True, help="initial pressure, Pa")
     p.add_argument("--composition", required=True, help="mole-based, e.g. 'H2:2,O2:1,N2:3.76'")
@@ -214,7 +246,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("estimate", help="estimate a grid's time and disk from a few sample cases")
     p.add_argument("config")
     p.add_argument("--sample", type=int, default=4, help="cases to run as a sample (default 4)")
-    p.add_argument("--cores", type=int, default=2, help="cores the grid will run on (default 2)")
+    p.add_argument("--cores", type=int, default=_available_cores(),
+                   help="cores the grid will run on (default: this machine's, %(default)s)")
     p.set_defaults(func=cmd_estimate)
 
     p = sub.add_parser("bench", help="measure the pipeline against bare Cantera (prints figures)")
@@ -222,6 +255,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="JSON for scripts instead of a table")
     p.add_argument("--only", action="append", choices=("observe", "sea", "query", "grid", "large"),
                    help="measure only this part (repeatable; default all)")
+    p.add_argument("--workflow", default=None, metavar="FOLDER",
+                   help="project folder holding the Snakefile, for the grid part (default: the current folder)")
     p.set_defaults(func=cmd_bench)
 
     p = sub.add_parser("show", help="readable summary of a case file")
