@@ -146,3 +146,36 @@ def test_case_into_a_missing_folder_is_one_line_and_exit_74(tmp_path):
     assert done.returncode == 74, done.stderr  # EX_IOERR of sysexits.h
     assert "Traceback" not in done.stderr and len(done.stderr.strip().splitlines()) == 1
     assert "the folder no longer exists" in done.stderr and not out.exists()
+
+
+def test_init_writes_a_starter_that_check_summarizes(tmp_path):
+    import cantera as ct
+
+    target = tmp_path / "vent.yaml"
+    assert run_cli("init", str(target)).returncode == 0
+    again = run_cli("init", str(target))
+    assert again.returncode == 2 and "never overwrites" in again.stderr  # the first file is kept
+    checked = run_cli("check", str(target))
+    assert checked.returncode == 0, checked.stderr
+    # the grid is the product of its axes (1 reactor x 2 temperatures x 1 pressure x 3 ratios),
+    # the mechanism's size is Cantera's own count
+    gas = ct.Solution("h2o2.yaml")
+    assert "6 cases = 1 reactors x 2 temperatures x 1 pressures x 3 mixtures" in checked.stdout
+    assert f"{gas.n_species} species, {gas.n_reactions} reactions" in checked.stdout
+    listed = run_cli("cases", str(target))
+    assert listed.returncode == 0 and listed.stdout.startswith("# 6 cases")
+
+
+def test_check_reports_every_problem_at_once(tmp_path):
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("mechanism: h2o2.yaml\nreactors: [isolated, warm]\ntemperature: [-5.0, 900.0]\n"
+                   "pressure: [101325.0]\nfeed: {fuel: 'H2:1', oxidizer: 'O2:1', equivalence_ratio: [1.0]}\n"
+                   "stop: {max_tim: 1.0}\n")
+    checked = run_cli("check", str(bad))
+    assert checked.returncode == 2
+    lines = checked.stderr.strip().splitlines()
+    assert lines[-1] == f"{bad}: 3 problems"
+    assert sorted(line.split(": ")[2] for line in lines[:-1]) == ["reactors[1]", "stop.max_tim", "temperature[0]"]
+    # the run refuses the same file with the first of them
+    listed = run_cli("cases", str(bad))
+    assert listed.returncode == 2 and listed.stderr.strip() == lines[0]

@@ -1,5 +1,7 @@
 """The ``sigmagrid`` command.
 
+    sigmagrid init FILE                 write a commented starter config
+    sigmagrid check CONFIG              every problem of a config at once, or a summary of its grid
     sigmagrid cases CONFIG              list the cases a config expands to, before running
     sigmagrid run CONFIG [--results D]  run the whole grid in this process (no Snakemake)
     sigmagrid case --mechanism ...      run one case to one file
@@ -68,6 +70,51 @@ def cmd_cases(args) -> int:
     for c in sorted(grid.cases, key=lambda c: c.label):
         print(f"{c.case_id:16}  {c.reactor:17}  {c.composition_name:10}  {c.equivalence_ratio:8.3g}  "
               f"{c.temperature:8.1f}  {c.pressure:10.4g}  {c.label}")
+    return 0
+
+
+def cmd_init(args) -> int:
+    from importlib.resources import files
+
+    target = Path(args.file)
+    if target.exists():
+        raise InputError("FILE", f"'{target}' exists; init never overwrites a file, name a new one")
+    if target.suffix not in (".yaml", ".yml"):
+        raise InputError("FILE", f"must end in .yaml or .yml, got '{target.name}'")
+    text = files("sigmagrid").joinpath("templates/starter.yaml").read_text(encoding="utf-8")
+    try:
+        target.write_text(text, encoding="utf-8")
+    except OSError as err:
+        raise InputError("FILE", f"cannot write '{target}': {err.strerror}") from None
+    print(f"wrote {target}; next: sigmagrid check {target}", file=sys.stderr)
+    return 0
+
+
+def cmd_check(args) -> int:
+    from . import config as config_mod, grid as grid_mod, runner
+
+    text = config_mod.read_config_text(args.config)
+    raw = json.loads(text) if args.config.endswith(".json") else config_mod.read_yaml(text, f"'{args.config}'")
+    found = config_mod.problems(raw)
+    for field, message in found:
+        print(f"sigmagrid: error: {field}: {message}", file=sys.stderr)
+    if found:
+        print(f"{args.config}: {len(found)} problem{'s' if len(found) > 1 else ''}", file=sys.stderr)
+        return EXIT_INPUT
+    config = config_mod.validate(raw)
+    grid = grid_mod.expand(config)  # the mechanism, species and phase: an InputError names the field
+    batches = grid.batches(config["batch"]["cases_per_job"])
+    sea = runner.RunSettings.from_config(config).sea  # SEA settings are checked here too
+    axes = {"reactors": len(config["reactors"]), "temperatures": len(config["temperature"]),
+            "pressures": len(config["pressure"]), "mixtures": len({c.composition_name for c in grid.cases})}
+    print(f"{args.config}: valid")
+    print(f"  study       {config.get('study', '')}")
+    print(f"  mechanism   {grid.mechanism_path.name}: {grid.gas.n_species} species, {grid.gas.n_reactions} reactions "
+          f"(sha256 {grid.mechanism_sha256[:12]})")
+    print(f"  grid        {len(grid.cases)} cases = " + " x ".join(f"{v} {k}" for k, v in axes.items()) +
+          f", in {len(batches)} batches of up to {config['batch']['cases_per_job']}")
+    print(f"  SEA metrics {', '.join(sea.metrics) if sea is not None else 'off'}")
+    print(f"  next        sigmagrid estimate {args.config}   (time and disk, from a few sample cases)")
     return 0
 
 
@@ -206,6 +253,14 @@ def build_parser() -> argparse.ArgumentParser:
                                      "equilibrium with per-reaction entropy production, over a grid of cases.")
     parser.add_argument("--version", action="version", version=_version())
     sub = parser.add_subparsers(dest="command", required=True)
+
+    p = sub.add_parser("init", help="write a commented starter config")
+    p.add_argument("file", help="the new config file, .yaml (never overwritten)")
+    p.set_defaults(func=cmd_init)
+
+    p = sub.add_parser("check", help="check a config: every problem at once, or a summary of its grid")
+    p.add_argument("config")
+    p.set_defaults(func=cmd_check)
 
     p = sub.add_parser("cases", help="list the cases a config expands to")
     p.add_argument("config")

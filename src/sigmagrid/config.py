@@ -123,16 +123,19 @@ def _describe(error: jsonschema.ValidationError) -> tuple[str, str]:
     return field, error.message
 
 
-def _reject_non_finite(node: Any, path: str = "config") -> None:
-    # YAML reads .nan and .inf as floats; the schema's ranges do not catch NaN.
+def _non_finite(node: Any, path: str = "config") -> list[tuple[str, str]]:
+    """(field, message) of every NaN or infinity: YAML reads .nan and .inf as floats, and the
+    schema's ranges do not catch NaN."""
     if isinstance(node, float) and not math.isfinite(node):
-        raise InputError(path, f"must be a finite number, got {node!r}")
+        return [(path, f"must be a finite number, got {node!r}")]
+    found = []
     if isinstance(node, dict):
         for key, value in node.items():
-            _reject_non_finite(value, f"{path}.{key}" if path != "config" else str(key))
+            found += _non_finite(value, f"{path}.{key}" if path != "config" else str(key))
     elif isinstance(node, list):
         for i, value in enumerate(node):
-            _reject_non_finite(value, f"{path}[{i}]")
+            found += _non_finite(value, f"{path}[{i}]")
+    return found
 
 
 _FLOAT_TEXT = re.compile(r"^[-+]?(?:\d+\.?\d*|\.\d+)[eE][-+]?\d+$")
@@ -168,24 +171,38 @@ def _node_count(node: Any) -> int:
     return count
 
 
-def validate(raw: Any) -> dict:
-    """Schema-check a config mapping and fill in the defaults. Raises InputError."""
+def problems(raw: Any) -> list[tuple[str, str]]:
+    """Every (field, message) wrong with a config mapping, in the order ``validate`` reports
+    them; empty if it is valid."""
     if not isinstance(raw, dict):
-        raise InputError("config", f"must be a mapping of keys to values, got {type(raw).__name__}")
+        return [("config", f"must be a mapping of keys to values, got {type(raw).__name__}")]
     if _node_count(raw) > MAX_CONFIG_NODES:
-        raise InputError("config", f"holds more than {MAX_CONFIG_NODES} values (repeated references?); "
-                         "a grid config lists a few axes")
+        return [("config", f"holds more than {MAX_CONFIG_NODES} values (repeated references?); "
+                 "a grid config lists a few axes")]
     try:
         raw = _numbers_from_text(raw)
-        _reject_non_finite(raw)
+        found = _non_finite(raw)
     except RecursionError:
-        raise InputError("config", "is nested too deeply to be a config") from None
+        return [("config", "is nested too deeply to be a config")]
     validator = jsonschema.Draft202012Validator(schema())
     errors = sorted(validator.iter_errors(raw), key=lambda e: (len(list(e.absolute_path)), str(e.absolute_path)))
-    if errors:
-        raise InputError(*_describe(errors[0]))
+    found += [_describe(error) for error in errors]
     if "feed" not in raw and "compositions" not in raw:
-        raise InputError("feed", "give a feed (fuel, oxidizer, equivalence_ratio) or a list of compositions")
+        found.append(("feed", "give a feed (fuel, oxidizer, equivalence_ratio) or a list of compositions"))
+    unique = []
+    for item in found:  # a bad value can break several schema rules at once
+        if item not in unique:
+            unique.append(item)
+    return unique
+
+
+def validate(raw: Any) -> dict:
+    """Schema-check a config mapping and fill in the defaults. Raises InputError (the first of
+    :func:`problems`)."""
+    found = problems(raw)
+    if found:
+        raise InputError(*found[0])
+    raw = _numbers_from_text(raw)
     merged = copy.deepcopy(DEFAULTS)
     for key, value in raw.items():
         if isinstance(value, dict) and isinstance(merged.get(key), dict):
