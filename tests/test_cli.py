@@ -179,3 +179,35 @@ def test_check_reports_every_problem_at_once(tmp_path):
     # the run refuses the same file with the first of them
     listed = run_cli("cases", str(bad))
     assert listed.returncode == 2 and listed.stderr.strip() == lines[0]
+
+
+def test_case_feed_form_no_sea_and_a_grid_config(tmp_path):
+    import cantera as ct
+    import numpy as np
+    import yaml
+
+    out = tmp_path / "feed.nc"
+    done = run_cli("case", "--mechanism", "h2o2.yaml", "--reactor", "isolated", "--temperature", "1100",
+                   "--pressure", "101325", "--fuel", "H2:1", "--oxidizer", "O2:1,N2:3.76", "--phi", "0.5",
+                   "--no-sea", "--out", str(out), "--max-time", "1")
+    assert done.returncode == 0, done.stderr
+    gas = ct.Solution("h2o2.yaml")  # reference: Cantera's own equivalence-ratio mixing
+    gas.set_equivalence_ratio(0.5, "H2:1", "O2:1,N2:3.76")
+    with xr.open_dataset(out) as ds:
+        assert "metric" not in ds.dims  # no SEA comparison
+        first = ds["mole_fraction"].isel(time=0).sel(species=gas.species_names).values
+        # stored with 5 significant digits (store.SIGNIFICANT_DIGITS): rounding error <= 5e-5 relative
+        np.testing.assert_allclose(first, gas.X, rtol=5e-5, atol=1e-12)
+    grid = tmp_path / "grid.yaml"
+    grid.write_text(yaml.safe_dump({"mechanism": "h2o2.yaml", "reactors": ["isolated"], "temperature": [900.0],
+                                    "pressure": [101325.0], "compositions": [{"name": "a", "composition": "H2:1"}],
+                                    "stop": {"max_time": 0.25}, "sea": {"metrics": ["fitted-scalar"]}}))
+    out2 = tmp_path / "from-grid.nc"
+    done = run_cli("case", "--config", str(grid), "--reactor", "constant-pressure", "--temperature", "1100",
+                   "--pressure", "101325", "--composition", "H2:2,O2:1,N2:3.76", "--sea-metrics", "onsager",
+                   "--out", str(out2))
+    assert done.returncode == 0, done.stderr
+    with xr.open_dataset(out2) as ds:
+        assert list(ds["metric"].values) == ["onsager"]  # the command line over the config
+        assert ds.attrs["reactor"] == "constant-pressure"
+        assert float(ds["time"].max()) <= 0.25  # the config's stop.max_time, s

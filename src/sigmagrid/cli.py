@@ -156,26 +156,66 @@ def cmd_summarize(args) -> int:
 
 _CASE_FIELDS = {"mechanism": "--mechanism", "phase": "--phase", "reactors[0]": "--reactor", "temperature[0]": "--temperature",
                 "pressure[0]": "--pressure", "compositions[0].composition": "--composition",
-                "stop.max_time": "--max-time",
+                "feed.fuel": "--fuel", "feed.oxidizer": "--oxidizer", "feed.equivalence_ratio[0]": "--phi",
+                "stop.max_time": "--max-time", "sea.metrics": "--sea-metrics",
                 "stop.isothermal_max_time": "--max-time", "storage.max_samples": "--max-samples"}
+
+#: grid axes that ``case --config`` replaces with the one case given on the command line
+_GRID_AXES = ("reactors", "temperature", "pressure", "feed", "compositions")
+
+
+def _case_config(args) -> dict:
+    """The raw config of ``sigmagrid case``: a grid config's settings (``--config``) with the case's
+    own axes, and the command line's settings over both."""
+    from . import config as config_mod
+
+    raw = {}
+    if args.config is not None:
+        base = config_mod.read_yaml(config_mod.read_config_text(args.config), f"'{args.config}'")
+        if not isinstance(base, dict):
+            raise InputError("--config", f"'{args.config}' is not a mapping of keys to values")
+        raw = {k: v for k, v in base.items() if k not in _GRID_AXES}
+    if args.mechanism is not None:
+        raw["mechanism"] = args.mechanism
+    elif "mechanism" not in raw:
+        raise InputError("--mechanism", "is required (or a --config that names one)")
+    feed = (args.fuel, args.oxidizer, args.phi)
+    if args.composition is not None and any(v is not None for v in feed):
+        raise InputError("--composition", "give either --composition or --fuel/--oxidizer/--phi, not both")
+    if args.composition is not None:
+        raw["compositions"] = [{"name": "mixture", "composition": args.composition}]
+    elif all(v is not None for v in feed):
+        raw["feed"] = {"fuel": args.fuel, "oxidizer": args.oxidizer, "equivalence_ratio": [args.phi]}
+    else:
+        raise InputError("--composition", "is required (or all three of --fuel, --oxidizer and --phi)")
+    raw.update({"reactors": [args.reactor], "temperature": [args.temperature], "pressure": [args.pressure]})
+    if args.phase is not None:
+        raw["phase"] = args.phase
+    if args.max_time is not None:
+        key = "isothermal_max_time" if args.reactor == "isothermal" else "max_time"
+        raw["stop"] = {**(raw.get("stop") or {}), key: args.max_time}
+    if args.max_samples is not None:
+        raw["storage"] = {**(raw.get("storage") or {}), "max_samples": args.max_samples}
+    if args.no_sea:
+        raw["sea"] = {**(raw.get("sea") or {}), "enabled": False}
+    elif args.sea_metrics is not None:
+        metrics = [m.strip() for m in args.sea_metrics.split(",") if m.strip()]
+        raw["sea"] = {**(raw.get("sea") or {}), "enabled": True, "metrics": metrics}
+    return raw
 
 
 def cmd_case(args) -> int:
     from . import config as config_mod, grid as grid_mod, runner
 
-    raw = {"mechanism": args.mechanism, "reactors": [args.reactor], "temperature": [args.temperature],
-           "pressure": [args.pressure], "compositions": [{"name": "mixture", "composition": args.composition}]}
-    if args.phase is not None:
-        raw["phase"] = args.phase
-    if args.max_time is not None:
-        raw["stop"] = {"isothermal_max_time" if args.reactor == "isothermal" else "max_time": args.max_time}
-    if args.max_samples is not None:
-        raw["storage"] = {"max_samples": args.max_samples}
     try:
-        config = config_mod.validate(raw)
+        config = config_mod.validate(_case_config(args))
         grid = grid_mod.expand(config)
+        runner.RunSettings.from_config(config)  # the SEA settings, before anything runs
     except InputError as err:
-        raise InputError(_CASE_FIELDS.get(err.field, err.field), err.message) from None
+        field = _CASE_FIELDS.get(err.field, err.field)
+        if field.startswith("sea.metrics"):
+            field = "--sea-metrics"
+        raise InputError(field, err.message) from None
     out = Path(args.out)
     if out.suffix != ".nc":
         raise InputError("--out", f"must name a .nc file, got '{out}'")
@@ -286,16 +326,25 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=cmd_summarize)
 
     p = sub.add_parser("case", help="run one case to one file")
-    p.add_argument("--mechanism", required=True, help="mechanism file or a name Cantera ships")
+    p.add_argument("--config", default=None, metavar="FILE",
+                   help="take the settings (and mechanism) of this grid config; the case's own values replace its axes")
+    p.add_argument("--mechanism", default=None, help="mechanism file or a name Cantera ships")
     p.add_argument("--phase", default=None, help="ideal-gas phase of a file that defines several (default: the first)")
     p.add_argument("--reactor", required=True, choices=("isolated", "constant-pressure", "isothermal"),
                    help="the reactor: held (U, V), (H, P) or (T, P)")
     p.add_argument("--temperature", type=float, required=True, help="initial temperature, K")
     p.add_argument("--pressure", type=float, required=True, help="initial pressure, Pa")
-    p.add_argument("--composition", required=True, help="mole-based, e.g. 'H2:2,O2:1,N2:3.76'")
+    p.add_argument("--composition", default=None, help="mole-based, e.g. 'H2:2,O2:1,N2:3.76'")
+    p.add_argument("--fuel", default=None, help="fuel of the feed form, e.g. 'CH4:1' (with --oxidizer, --phi)")
+    p.add_argument("--oxidizer", default=None, help="oxidizer of the feed form, e.g. 'O2:1,N2:3.76'")
+    p.add_argument("--phi", type=float, default=None, help="equivalence ratio of the feed form, 1")
     p.add_argument("--out", required=True, help="output file, .nc")
     p.add_argument("--max-time", type=float, default=None, help="s (default 10; isothermal 1e6)")
     p.add_argument("--max-samples", type=int, default=None, help="stored samples (default 500)")
+    sea = p.add_mutually_exclusive_group()
+    sea.add_argument("--no-sea", action="store_true", help="skip the steepest-entropy-ascent comparison")
+    sea.add_argument("--sea-metrics", default=None, metavar="LIST",
+                     help="comma-separated SEA metrics (default: the config's, else the four defaults)")
     p.set_defaults(func=cmd_case)
 
     p = sub.add_parser("estimate", help="estimate a grid's time and disk from a few sample cases")
