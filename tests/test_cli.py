@@ -211,3 +211,19 @@ def test_case_feed_form_no_sea_and_a_grid_config(tmp_path):
         assert list(ds["metric"].values) == ["onsager"]  # the command line over the config
         assert ds.attrs["reactor"] == "constant-pressure"
         assert float(ds["time"].max()) <= 0.25  # the config's stop.max_time, s
+
+
+def test_run_shows_overall_progress_and_counts_resumed_cases(tmp_path):
+    import yaml
+
+    config = {"mechanism": "h2o2.yaml", "reactors": ["isolated"], "temperature": [1000.0, 1100.0],
+              "pressure": [101325.0], "compositions": [{"name": "a", "composition": "H2:2,O2:1,N2:3.76"}],
+              "stop": {"max_time": 0.5}, "sea": {"enabled": False}}
+    (tmp_path / "grid.yaml").write_text(yaml.safe_dump(config))
+    first = run_cli("run", "grid.yaml", "--results", "out", cwd=tmp_path)
+    assert first.returncode == 0, first.stderr
+    lines = [line for line in first.stdout.splitlines() if line.startswith("[")]
+    assert [line.split("]")[0] for line in lines] == ["[1/2", "[2/2"]
+    assert all(" elapsed, about " in line and line.endswith(" left") for line in lines)
+    second = run_cli("run", "grid.yaml", "--results", "out", cwd=tmp_path)
+    assert second.returncode == 0 and "2 of 2 cases already finished with the same settings" in second.stdout

@@ -167,10 +167,14 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
     for note in info.notes:
         report(f"note: {note}")
     written = []
-    for n, case in enumerate(cases, 1):
+    reuse = [skip_existing and _reusable(out_dir / f"{case.case_id}.nc", meta["settings_sha256"]) for case in cases]
+    if any(reuse):
+        report(f"{sum(reuse)} of {len(cases)} cases already finished with the same settings: kept, not rerun")
+    to_run, done, run_started = len(cases) - sum(reuse), 0, time.perf_counter()
+    for n, (case, reused) in enumerate(zip(cases, reuse), 1):
         target = out_dir / f"{case.case_id}.nc"
         store.remove_stale_temporaries(target)  # a killed earlier run may have left one
-        if skip_existing and _reusable(target, meta["settings_sha256"]):
+        if reused:
             written.append(target)
             continue
         started = time.perf_counter()
@@ -180,10 +184,23 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
             raise storage_error(out_dir, err, f"case file {target.name}",
                                 f"{len(written)} finished case files are kept") from None
         written.append(target)
+        done += 1
+        elapsed = time.perf_counter() - run_started
         why = f" ({ds.attrs['reason']})" if ds.attrs["reason"] else ""
         report(f"[{n}/{len(cases)}] {case.label}: {ds.attrs['status']} in {time.perf_counter() - started:.2f} s, "
-               f"balance residual {float(ds['balance_residual']):.1e}{why}")
+               f"balance residual {float(ds['balance_residual']):.1e}{why}; {_clock(elapsed)} elapsed, "
+               f"about {_clock(elapsed / done * (to_run - done))} left")
     return written
+
+
+def _clock(seconds: float) -> str:
+    """A duration for people: 42 s, 3 min 20 s, 2 h 05 min."""
+    seconds = int(round(seconds))
+    if seconds < 60:
+        return f"{seconds} s"
+    if seconds < 3600:
+        return f"{seconds // 60} min {seconds % 60:02d} s"
+    return f"{seconds // 3600} h {seconds % 3600 // 60:02d} min"
 
 
 def _reusable(target: Path, settings_sha256: str) -> bool:
