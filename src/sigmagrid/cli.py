@@ -42,7 +42,30 @@ for _variable in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_variable, "1")
 
 
-def _load_config(path: str) -> dict:
+def _load_config(path: str, convert_into: str | Path | None = None) -> dict:
+    """The validated config of ``path``; a mechanism in the keyword text format is converted to
+    YAML into ``convert_into`` (default: a temporary folder of this process)."""
+    config = _read_config(path)
+    if Path(config["mechanism"]).suffix.lower() in (".yaml", ".yml") and not (
+            config.get("thermo") or config.get("transport")):
+        return config  # YAML: nothing to convert (and no Cantera import for the quick commands)
+    from . import mechanism
+
+    if convert_into is None:
+        import atexit
+        import shutil
+        import tempfile
+
+        convert_into = tempfile.mkdtemp(prefix="sigmagrid-mechanism-")
+        atexit.register(shutil.rmtree, convert_into, ignore_errors=True)
+    return mechanism.convert_keyword_format(config, convert_into, report=_note)
+
+
+def _note(line: str) -> None:
+    print(f"note: {line}", file=sys.stderr)
+
+
+def _read_config(path: str) -> dict:
     from . import config as config_mod
 
     if path.endswith(".json"):
@@ -101,7 +124,7 @@ def cmd_check(args) -> int:
     if found:
         print(f"{args.config}: {len(found)} problem{'s' if len(found) > 1 else ''}", file=sys.stderr)
         return EXIT_INPUT
-    config = config_mod.validate(raw)
+    config = _load_config(args.config)  # a keyword-format mechanism is converted, its messages shown
     grid = grid_mod.expand(config)  # the mechanism, species and phase: an InputError names the field
     batches = grid.batches(config["batch"]["cases_per_job"])
     sea = runner.RunSettings.from_config(config).sea  # SEA settings are checked here too
@@ -121,7 +144,7 @@ def cmd_check(args) -> int:
 def cmd_run(args) -> int:
     from . import runner
 
-    config = _load_config(args.config)
+    config = _load_config(args.config, Path(args.results) / "mechanisms")
     summary = runner.run_grid(config, args.results, report=lambda line: print(line, flush=True))
     counts = {s: int((summary["status"] == s).sum()) for s in ("relaxed", "not-relaxed", "failed")}
     print(f"summary: {args.results}/summary.nc, {args.results}/cases.csv; " +
@@ -154,7 +177,7 @@ def cmd_summarize(args) -> int:
     return 0
 
 
-_CASE_FIELDS = {"mechanism": "--mechanism", "phase": "--phase", "reactors[0]": "--reactor", "temperature[0]": "--temperature",
+_CASE_FIELDS = {"mechanism": "--mechanism", "thermo": "--thermo", "phase": "--phase", "reactors[0]": "--reactor", "temperature[0]": "--temperature",
                 "pressure[0]": "--pressure", "compositions[0].composition": "--composition",
                 "feed.fuel": "--fuel", "feed.oxidizer": "--oxidizer", "feed.equivalence_ratio[0]": "--phi",
                 "stop.max_time": "--max-time", "sea.metrics": "--sea-metrics",
@@ -177,6 +200,10 @@ def _case_config(args) -> dict:
         raw = {k: v for k, v in base.items() if k not in _GRID_AXES}
     if args.mechanism is not None:
         raw["mechanism"] = args.mechanism
+        raw.pop("thermo", None)
+        raw.pop("transport", None)
+    if args.thermo is not None:
+        raw["thermo"] = args.thermo
     elif "mechanism" not in raw:
         raise InputError("--mechanism", "is required (or a --config that names one)")
     feed = (args.fuel, args.oxidizer, args.phi)
@@ -207,8 +234,11 @@ def _case_config(args) -> dict:
 def cmd_case(args) -> int:
     from . import config as config_mod, grid as grid_mod, runner
 
+    from . import mechanism
+
     try:
         config = config_mod.validate(_case_config(args))
+        config = mechanism.convert_keyword_format(config, Path(args.out).parent / "mechanisms", report=_note)
         grid = grid_mod.expand(config)
         runner.RunSettings.from_config(config)  # the SEA settings, before anything runs
     except InputError as err:
@@ -329,6 +359,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--config", default=None, metavar="FILE",
                    help="take the settings (and mechanism) of this grid config; the case's own values replace its axes")
     p.add_argument("--mechanism", default=None, help="mechanism file or a name Cantera ships")
+    p.add_argument("--thermo", default=None, metavar="FILE",
+                   help="thermo data of a mechanism in the keyword text format, where they are not inside it")
     p.add_argument("--phase", default=None, help="ideal-gas phase of a file that defines several (default: the first)")
     p.add_argument("--reactor", required=True, choices=("isolated", "constant-pressure", "isothermal"),
                    help="the reactor: held (U, V), (H, P) or (T, P)")

@@ -143,7 +143,8 @@ _FLOAT_TEXT = re.compile(r"^[-+]?(?:\d+\.?\d*|\.\d+)[eE][-+]?\d+$")
 
 def _numbers_from_text(node: Any, key: str = "") -> Any:
     # Loaders that follow YAML 1.1 (Snakemake's among them) leave 1e-8 as text.
-    if isinstance(node, str) and key not in ("study", "name", "composition", "fuel", "oxidizer", "mechanism", "phase") \
+    if isinstance(node, str) and key not in ("study", "name", "composition", "fuel", "oxidizer", "mechanism", "phase",
+                                                                "thermo", "transport") \
             and _FLOAT_TEXT.match(node.strip()):
         return float(node)
     if isinstance(node, dict):

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
+import io
 import os
 import warnings
 from dataclasses import dataclass, field
@@ -45,6 +47,89 @@ def resolve(name: str, field_name: str = "mechanism", root: str | Path | None = 
         f"no mechanism file '{name}': give an existing path or a name Cantera ships "
         "(for example 'h2o2.yaml' or 'gri30.yaml')",
     )
+
+
+#: first keywords of a mechanism in the keyword text format (Kee et al., CHEMKIN-III, Sandia
+#: report SAND96-8216, 1996), which may be abbreviated to four letters
+_KEYWORDS = ("ELEMENTS", "ELEM", "SPECIES", "SPEC", "THERMO", "REACTIONS", "REAC")
+
+
+def is_keyword_format(path: Path) -> bool:
+    """Whether a mechanism file is in the keyword text format rather than Cantera's YAML: its
+    first line that is neither blank nor a comment (``!``) starts with one of its keywords."""
+    path = Path(path)
+    if path.suffix.lower() in (".yaml", ".yml") or not path.is_file():
+        return False
+    with open(path, encoding="utf-8", errors="replace") as handle:
+        for line in handle:
+            text = line.split("!", 1)[0].strip()
+            if text:
+                return text.split()[0].upper() in _KEYWORDS
+    return False
+
+
+def convert_keyword_format(config: dict, folder: str | Path, report=None, root: str | Path | None = None) -> dict:
+    """The config with a keyword-format mechanism replaced by its YAML conversion.
+
+    Cantera's own converter (``cantera.ck2yaml``) writes ``folder/<name>-<sha12>.yaml``, the
+    hash over the source files (mechanism, ``thermo`` and ``transport`` of the config), so a
+    conversion is done once and a changed source gets a new file. The converted file is then
+    hashed and loaded like any YAML mechanism. ``report`` receives the converter's messages
+    (notes on the input, as "converter: ..."). A config whose mechanism is YAML is returned as it
+    is; a ``thermo`` or ``transport`` without a keyword-format mechanism is refused. ``root``: as
+    for :func:`resolve`.
+    """
+    from cantera import ck2yaml
+
+    source = resolve(config["mechanism"], root=root)
+    extra = {key: config.get(key) for key in ("thermo", "transport")}
+    if not is_keyword_format(source):
+        given = [key for key, value in extra.items() if value]
+        if given:
+            raise InputError(given[0], f"applies only to a mechanism in the keyword text format; "
+                             f"'{source.name}' is YAML (its thermo is inside it)")
+        return config
+    files = {key: resolve(value, key, root=root) for key, value in extra.items() if value}
+    digest = hashlib.sha256()
+    for path in (source, *files.values()):
+        digest.update(Path(path).read_bytes())
+    folder = Path(folder)
+    target = folder / f"{source.stem}-{digest.hexdigest()[:12]}.yaml"
+    if not target.is_file():
+        folder.mkdir(parents=True, exist_ok=True)
+        partial = target.with_name(f".{target.name}.{os.getpid()}.tmp")
+        # the converter prints its messages to stdout through its own log handler: they are
+        # captured and come back through ``report`` or the error
+        printed = io.StringIO()
+        try:
+            with contextlib.redirect_stdout(printed):
+                ck2yaml.Parser.convert_mech(
+                    str(source), thermo_file=str(files["thermo"]) if "thermo" in files else None,
+                    transport_file=str(files["transport"]) if "transport" in files else None,
+                    out_name=str(partial), quiet=True)
+            os.replace(partial, target)
+        except Exception as err:  # the converter's InputError, or its parser's own exceptions
+            partial.unlink(missing_ok=True)
+            lines = _converter_lines(printed.getvalue()) or _converter_lines(str(err))
+            said = "; ".join(lines[:3]) + (f"; and {len(lines) - 3} more" if len(lines) > 3 else "")
+            hint = "" if "thermo" in files else " (thermo data in a separate file? name it in 'thermo')"
+            raise InputError("mechanism", f"'{source.name}' (keyword text format) does not convert with "
+                             f"Cantera's ck2yaml: {said[:500]}{hint}") from None
+        if report is not None:
+            for line in _converter_lines(printed.getvalue()):
+                report(f"converter: {line}")
+    converted = dict(config)
+    converted["mechanism"] = str(target)
+    for key in ("thermo", "transport"):
+        converted.pop(key, None)
+    return converted
+
+
+def _converter_lines(text: str) -> list[str]:
+    """The converter's messages, one per line, without its rules of asterisks and its pointer to
+    the tutorial."""
+    lines = [" ".join(line.split()) for line in text.splitlines() if line.strip("* \t")]
+    return [line for line in lines if not line.startswith(("Please check", "https://", "for the correct"))]
 
 
 def file_sha256(path: Path) -> str:

@@ -6,11 +6,15 @@ import sys
 
 from sigmagrid import config as sg_config
 from sigmagrid import grid as sg_grid
+from sigmagrid import mechanism as sg_mechanism
 from sigmagrid.errors import InputError
 from sigmagrid.atomic import write_text_atomic
 
 try:
     CONFIG = sg_config.validate(dict(config))
+    # a mechanism in the keyword text format: converted once into results/mechanisms, then YAML
+    CONFIG = sg_mechanism.convert_keyword_format(
+        CONFIG, "results/mechanisms", report=lambda line: sys.stderr.write(f"note: {line}\n"), root=os.getcwd())
     GRID = sg_grid.expand(CONFIG, project_root=os.getcwd())
 except InputError as err:
     sys.stderr.write(f"sigmagrid: error: {err.field}: {err.message}\n")
