@@ -19,9 +19,9 @@ _REDUCTION = f"{RESULTS}/reduction.nc" if "RANK_TARGETS" in globals() else None
 report: "../report/workflow.rst"
 
 
-# Per-case figures in a few jobs (about 4 per core): drawing a case takes seconds, starting the
-# interpreter for it would take as long again.
-_FIGURE_JOBS = max(1, min(len(FIGURE_CASES), 8))
+# Per-case figures in a few jobs of about 4 cases (at most 8 jobs): drawing a case takes a few
+# seconds, and starting the interpreter with its imports for it about 2 s more.
+_FIGURE_JOBS = max(1, min(-(-len(FIGURE_CASES) // 4), 8))
 _FIGURE_BATCHES = [FIGURE_CASES[i::_FIGURE_JOBS] for i in range(_FIGURE_JOBS)]
 
 for _index, _cases in enumerate(_FIGURE_BATCHES):
