@@ -227,3 +227,21 @@ def test_run_shows_overall_progress_and_counts_resumed_cases(tmp_path):
     assert all(" elapsed, about " in line and line.endswith(" left") for line in lines)
     second = run_cli("run", "grid.yaml", "--results", "out", cwd=tmp_path)
     assert second.returncode == 0 and "2 of 2 cases already finished with the same settings" in second.stdout
+
+
+def test_json_outputs_parse_and_carry_units(tmp_path):
+    import json
+
+    listed = run_cli("cases", str(REPO / "config" / "config.yaml"), "--json")
+    assert listed.returncode == 0, listed.stderr
+    rows = json.loads(listed.stdout)
+    assert len(rows) == 24 and {"initial_temperature_K", "initial_pressure_Pa", "equivalence_ratio"} <= set(rows[0])
+    out = tmp_path / "one.nc"
+    assert run_cli("case", *GOOD, "--out", str(out), "--max-time", "1", "--no-sea").returncode == 0
+    shown = run_cli("show", str(out), "--json", "--top", "3")
+    assert shown.returncode == 0, shown.stderr
+    record = json.loads(shown.stdout)
+    assert record["status"] == "relaxed" and record["equilibrium_temperature"]["units"] == "K"
+    assert len(record["top_reactions"]) == 3
+    with xr.open_dataset(out) as ds:  # the numbers are the file's
+        assert record["equilibrium_temperature"]["value"] == float(ds["equilibrium_temperature"])

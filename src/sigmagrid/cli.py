@@ -78,17 +78,22 @@ def _read_config(path: str) -> dict:
 
 
 def cmd_cases(args) -> int:
-    from . import grid as grid_mod
+    from . import grid as grid_mod, mechanism
 
     config = _load_config(args.config)
     grid = grid_mod.expand(config)
     batches = grid.batches(config["batch"]["cases_per_job"])
-    print(f"# {len(grid.cases)} cases in {len(batches)} batches of up to {config['batch']['cases_per_job']}; "
-          f"mechanism {grid.mechanism_path.name} (sha256 {grid.mechanism_sha256[:12]})")
-    from . import mechanism
-
     for note in mechanism.describe(grid.gas).notes:
         print(f"note: {note}", file=sys.stderr)
+    if args.json:
+        rows = [{"case_id": c.case_id, "label": c.label, "reactor": c.reactor, "mixture": c.composition_name,
+                 "equivalence_ratio": c.equivalence_ratio, "initial_temperature_K": c.temperature,
+                 "initial_pressure_Pa": c.pressure, "batch": i}
+                for i, batch in enumerate(batches) for c in batch]
+        print(json.dumps(sorted(rows, key=lambda r: r["label"]), indent=1, default=float))
+        return 0
+    print(f"# {len(grid.cases)} cases in {len(batches)} batches of up to {config['batch']['cases_per_job']}; "
+          f"mechanism {grid.mechanism_path.name} (sha256 {grid.mechanism_sha256[:12]})")
     print(f"{'case_id':16}  {'reactor':17}  {'mixture':10}  {'phi [1]':>8}  {'T0 [K]':>8}  {'P0 [Pa]':>10}  label")
     for c in sorted(grid.cases, key=lambda c: c.label):
         print(f"{c.case_id:16}  {c.reactor:17}  {c.composition_name:10}  {c.equivalence_ratio:8.3g}  "
@@ -267,7 +272,10 @@ def cmd_show(args) -> int:
         if "case_id" not in ds.attrs:
             raise InputError("file", f"'{args.file}' is not a case file (no case_id attribute); `show` reads the "
                              "files under cases/, and xarray opens summaries and the others")
-    print(report.describe_case(args.file, top=args.top))
+    if args.json:
+        print(json.dumps(report.case_record(args.file, top=args.top), indent=1, default=str))
+    else:
+        print(report.describe_case(args.file, top=args.top))
     return 0
 
 
@@ -279,7 +287,7 @@ def cmd_estimate(args) -> int:
     config = _load_config(args.config)
     result = cost.estimate(config, n_sample=args.sample, cores=args.cores,
                            report=lambda line: print(line, file=sys.stderr, flush=True))
-    print(cost.format_estimate(result))
+    print(json.dumps(cost.estimate_record(result), indent=1) if args.json else cost.format_estimate(result))
     return 0
 
 
@@ -334,6 +342,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("cases", help="list the cases a config expands to")
     p.add_argument("config")
+    p.add_argument("--json", action="store_true", help="JSON for scripts instead of a table")
     p.set_defaults(func=cmd_cases)
 
     p = sub.add_parser("run", help="run a whole grid in this process (no Snakemake)")
@@ -384,6 +393,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--sample", type=int, default=4, help="cases to run as a sample (default 4)")
     p.add_argument("--cores", type=int, default=_available_cores(),
                    help="cores the grid will run on (default: this machine's, %(default)s)")
+    p.add_argument("--json", action="store_true", help="JSON for scripts instead of text")
     p.set_defaults(func=cmd_estimate)
 
     p = sub.add_parser("bench", help="measure the pipeline against bare Cantera (prints figures)")
@@ -397,7 +407,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("show", help="readable summary of a case file")
     p.add_argument("file")
-    p.add_argument("--top", type=int, default=8, help="how many reactions to list")
+    p.add_argument("--top", type=_positive_int, default=8, help="how many reactions to list (default 8)")
+    p.add_argument("--json", action="store_true", help="JSON for scripts instead of text")
     p.set_defaults(func=cmd_show)
 
     from . import cli_rank  # resample, rank, cut, assess-cut, cut-report, reduce, query

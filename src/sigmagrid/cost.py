@@ -118,6 +118,19 @@ def estimate(config: dict, n_sample: int = 4, cores: int = 2, report=lambda s: N
                     sea_seconds_per_case=tuple(sea_seconds))
 
 
+def estimate_record(e: Estimate) -> dict:
+    """The estimate for scripts (``sigmagrid estimate --json``): units in the key names."""
+    return {
+        "cases": e.n_cases, "species": e.n_species, "reactions": e.n_reactions,
+        "sampled_cases": list(e.sample_labels), "seconds_per_sampled_case": list(e.seconds_per_case),
+        "sea_seconds_per_sampled_case": list(e.sea_seconds_per_case),
+        "job_start_seconds": JOB_START_SECONDS, "kernel_load_seconds": e.kernel_load_seconds,
+        "cases_per_job": e.cases_per_job, "cores": e.cores,
+        "cpu_seconds": e.cpu_seconds, "wall_seconds": e.wall_seconds,
+        "disk_bytes": e.disk_bytes, "bytes_per_case": e.bytes_per_case,
+    }
+
+
 def format_estimate(e: Estimate) -> str:
     return "\n".join([
         f"grid: {e.n_cases} cases; mechanism {e.n_species} species, {e.n_reactions} reactions",

@@ -113,3 +113,47 @@ def _sea_lines(ds) -> list[str]:
     if "sea_comparison_wall_time" in ds:
         lines.append(f"    the whole comparison took {float(ds['sea_comparison_wall_time']):.2f} s")
     return lines
+
+
+def case_record(path, top: int = 8) -> dict:
+    """What :func:`describe_case` prints, for scripts (``sigmagrid show --json``): every number
+    as {"value", "units"}, NaN as null with the reason the file gives."""
+    ds = store.open_case(path)
+    a = ds.attrs
+
+    def quantity(name):
+        value = float(ds[name])
+        return {"value": value if np.isfinite(value) else None, "units": ds[name].attrs.get("units", "")}
+
+    record = {key: a.get(key) for key in ("case_id", "label", "status", "reason", "reactor", "composition",
+                                          "mechanism", "mechanism_sha256", "config_sha256", "settings_sha256",
+                                          "sigmagrid_version", "cantera_version")}
+    record["initial_temperature"] = {"value": float(a["initial_temperature"]), "units": "K"}
+    record["initial_pressure"] = {"value": float(a["initial_pressure"]), "units": "Pa"}
+    record["equivalence_ratio"] = {"value": float(a["equivalence_ratio"]), "units": "1"}
+    for name in ("balance_residual", "ignition_delay", "equilibrium_temperature", "final_temperature",
+                 "entropy_produced_total", "negative_entropy_share", "closed_vessel_pressure_ratio"):
+        if name in ds:
+            record[name] = quantity(name)
+    record["time_to_progress"] = [{"progress": float(level), "value": float(t) if np.isfinite(t) else None,
+                                   "units": ds["time_to_progress"].attrs.get("units", "s")}
+                                  for level, t in zip(ds["progress_level"].values, ds["time_to_progress"].values)]
+    record["missing_values"] = a.get("missing_values", "").split("; ") if a.get("missing_values") else []
+    record["audit_notes"] = a.get("audit_notes", "").split("; ") if a.get("audit_notes") else []
+    produced = ds["entropy_produced"].values
+    total = np.nansum(produced)
+    equations = ds["equation"].values if "equation" in ds.coords else ds["reaction"].values
+    top_rows = []
+    if np.isfinite(produced).any() and total != 0:
+        for j in np.argsort(-np.nan_to_num(produced, nan=-np.inf))[:top]:
+            top_rows.append({"reaction": ds["reaction"].values[j].item(), "equation": str(equations[j]),
+                             "entropy_produced": {"value": float(produced[j]), "units": "J K-1"},
+                             "share_of_total": float(produced[j] / total)})
+    record["top_reactions"] = top_rows
+    if "sea_status" in ds:
+        metrics = [str(m) for m in ds["metric"].values]
+        record["sea"] = {m: {"status": str(ds["sea_status"].values[i]), "reason": str(ds["sea_reason"].values[i]),
+                             "largest_path_angle": {"value": float(ds["largest_path_angle"].values[i]), "units": "rad"}}
+                         for i, m in enumerate(metrics)}
+    record["caution"] = safety.CAUTION
+    return record
