@@ -222,11 +222,11 @@ def test_run_shows_overall_progress_and_counts_resumed_cases(tmp_path):
     (tmp_path / "grid.yaml").write_text(yaml.safe_dump(config))
     first = run_cli("run", "grid.yaml", "--results", "out", cwd=tmp_path)
     assert first.returncode == 0, first.stderr
-    lines = [line for line in first.stdout.splitlines() if line.startswith("[")]
+    lines = [line for line in first.stderr.splitlines() if line.startswith("[")]  # progress: stderr
     assert [line.split("]")[0] for line in lines] == ["[1/2", "[2/2"]
     assert all(" elapsed, about " in line and line.endswith(" left") for line in lines)
     second = run_cli("run", "grid.yaml", "--results", "out", cwd=tmp_path)
-    assert second.returncode == 0 and "2 of 2 cases already finished with the same settings" in second.stdout
+    assert second.returncode == 0 and "2 of 2 cases already finished with the same settings" in second.stderr
 
 
 def test_json_outputs_parse_and_carry_units(tmp_path):

@@ -128,7 +128,7 @@ def test_plot_command_writes_the_case_figures(flow, tmp_path):
     assert done.returncode == 0, done.stderr
     for name in expected_case_figures(case):
         assert_image(out / f"{name}.png", figures.SIZE)
-        assert f"wrote {out / name}.png" in done.stdout
+        assert f"wrote {out / name}.png" in done.stderr  # messages on stderr
 
 
 @pytest.mark.parametrize("make", ["summary", "text", "missing"])

@@ -27,6 +27,7 @@ import sys
 from pathlib import Path
 
 from .errors import InputError, StorageError
+from .messages import QUIET, NORMAL, VERBOSE, detail, say, set_level
 
 EXIT_INPUT = 2
 EXIT_CASES_FAILED = 3
@@ -62,7 +63,7 @@ def _load_config(path: str, convert_into: str | Path | None = None) -> dict:
 
 
 def _note(line: str) -> None:
-    print(f"note: {line}", file=sys.stderr)
+    say(f"note: {line}")
 
 
 def _read_config(path: str) -> dict:
@@ -84,7 +85,7 @@ def cmd_cases(args) -> int:
     grid = grid_mod.expand(config)
     batches = grid.batches(config["batch"]["cases_per_job"])
     for note in mechanism.describe(grid.gas).notes:
-        print(f"note: {note}", file=sys.stderr)
+        say(f"note: {note}")
     if args.json:
         rows = [{"case_id": c.case_id, "label": c.label, "reactor": c.reactor, "mixture": c.composition_name,
                  "equivalence_ratio": c.equivalence_ratio, "initial_temperature_K": c.temperature,
@@ -114,7 +115,7 @@ def cmd_init(args) -> int:
         target.write_text(text, encoding="utf-8")
     except OSError as err:
         raise InputError("FILE", f"cannot write '{target}': {err.strerror}") from None
-    print(f"wrote {target}; next: sigmagrid check {target}", file=sys.stderr)
+    say(f"wrote {target}; next: sigmagrid check {target}")
     return 0
 
 
@@ -150,7 +151,7 @@ def cmd_run(args) -> int:
     from . import runner
 
     config = _load_config(args.config, Path(args.results) / "mechanisms")
-    summary = runner.run_grid(config, args.results, report=lambda line: print(line, flush=True))
+    summary = runner.run_grid(config, args.results, report=say, detail=detail)
     counts = {s: int((summary["status"] == s).sum()) for s in ("relaxed", "not-relaxed", "failed")}
     print(f"summary: {args.results}/summary.nc, {args.results}/cases.csv; " +
           ", ".join(f"{v} {k}" for k, v in counts.items()))
@@ -165,7 +166,7 @@ def cmd_batch(args) -> int:
     batches = grid.batches(config["batch"]["cases_per_job"])
     if not 0 <= args.index < len(batches):
         raise InputError("--index", f"must be between 0 and {len(batches) - 1}, got {args.index}")
-    runner.run_cases(config, list(batches[args.index]), args.out, report=lambda line: print(line, flush=True),
+    runner.run_cases(config, list(batches[args.index]), args.out, report=say, detail=detail,
                      grid=grid)
     return 0
 
@@ -286,7 +287,7 @@ def cmd_estimate(args) -> int:
         raise InputError("--sample" if args.sample < 1 else "--cores", "must be a whole number >= 1")
     config = _load_config(args.config)
     result = cost.estimate(config, n_sample=args.sample, cores=args.cores,
-                           report=lambda line: print(line, file=sys.stderr, flush=True))
+                           report=say)
     print(json.dumps(cost.estimate_record(result), indent=1) if args.json else cost.format_estimate(result))
     return 0
 
@@ -294,7 +295,7 @@ def cmd_estimate(args) -> int:
 def cmd_bench(args) -> int:
     from . import bench
 
-    results = bench.run(quick=args.quick, report=lambda line: print(line, file=sys.stderr, flush=True),
+    results = bench.run(quick=args.quick, report=say,
                         only=tuple(args.only or bench.SECTIONS), workflow=args.workflow)
     print(json.dumps(results, indent=1, default=float) if args.json else bench.format_table(results))
     return 0
@@ -330,6 +331,9 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="sigmagrid", description="Relaxation of reacting mixtures to "
                                      "equilibrium with per-reaction entropy production, over a grid of cases.")
     parser.add_argument("--version", action="version", version=_version())
+    loudness = parser.add_mutually_exclusive_group()
+    loudness.add_argument("-q", "--quiet", action="store_true", help="errors only on stderr (data still on stdout)")
+    loudness.add_argument("-v", "--verbose", action="store_true", help="more detail on stderr (each case's SEA paths)")
     sub = parser.add_subparsers(dest="command", required=True)
 
     p = sub.add_parser("init", help="write a commented starter config")
@@ -423,6 +427,7 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    set_level(QUIET if args.quiet else VERBOSE if args.verbose else NORMAL)
     try:
         return args.func(args)
     except InputError as err:

@@ -12,10 +12,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from .errors import InputError
-
-
-def _say(line: str) -> None:
-    print(line, flush=True)
+from .messages import say as _say
 
 
 def _out_folder(path: Path) -> Path:

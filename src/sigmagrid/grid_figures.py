@@ -391,16 +391,17 @@ def plot_grid(summary_path: str | Path, out_dir: str | Path, ranking: str | Path
         raise InputError("--top", f"must be at least 1, got {top}")
     out_dir = Path(out_dir)
     jobs: list[tuple[str, str, Callable]] = []
+    skipped = []  # said once every input has been read: a bad input is then the only message
     for name, q in MAP_QUANTITIES.items():
         values = summary[q.variable].values.astype(float) if q.variable in summary else None
         if values is None:
-            log(f"map_{name} skipped: {q.variable} not in {summary_path}")
+            skipped.append(f"map_{name} skipped: {q.variable} not in {summary_path}")
             continue
         jobs.append((f"map_{name}", f"Map of {q.title}",
                      lambda v=values, q=q: plot_map(summary, v, q.title, q.units, q.log)))
     angle = path_angle_variable(summary)
     if angle is None:
-        log(f"map_path_angle skipped: no SEA path angle per case and metric in {summary_path}")
+        skipped.append(f"map_path_angle skipped: no SEA path angle per case and metric in {summary_path}")
     else:
         var = summary[angle].transpose("case", "metric")
         for m in summary["metric"].values.astype(str):
@@ -408,16 +409,18 @@ def plot_grid(summary_path: str | Path, out_dir: str | Path, ranking: str | Path
                          lambda m=m: plot_map(summary, var.sel(metric=m).values.astype(float),
                                               f"largest SEA path angle ({m} metric)", "rad", False)))
     if ranking is None:
-        log("ranking skipped: no ranking file given (results/ranking.nc from the ranking step)")
+        skipped.append("ranking skipped: no ranking file given (results/ranking.nc from the ranking step)")
     else:
         ranks = _ranking_frame(_read_table(ranking, "--ranking"))
         jobs.append(("ranking", "Ranking of reactions by entropy produced", lambda: plot_ranking(ranks, top)))
     if reduction is None:
-        log("cuts skipped: no reduction file given (results/reduction.nc from the cut step)")
+        skipped.append("cuts skipped: no reduction file given (results/reduction.nc from the cut step)")
     else:
         cut_table = _cuts_frame(_read_table(reduction, "--reduction"))
         jobs.append(("cuts", "Reduced mechanisms: size against error",
                      lambda: plot_cuts(cut_table, summary.sizes["reaction"])))
+    for line in skipped:
+        log(line)
     out_dir.mkdir(parents=True, exist_ok=True)  # only once every input has been read
     written = []
     for name, title, make in jobs:

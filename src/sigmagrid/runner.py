@@ -146,11 +146,12 @@ def case_notes(relaxation: Relaxation, gas: ct.Solution) -> list[str]:
 
 def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
               report: Callable[[str], None] = print, skip_existing: bool = False,
-              grid: grid_mod.Grid | None = None) -> list[Path]:
+              grid: grid_mod.Grid | None = None, detail: Callable[[str], None] | None = None) -> list[Path]:
     """Run cases one after the other, writing ``<out_dir>/<case_id>.nc`` atomically for each.
 
     ``grid``: the expansion the cases come from; its parsed mechanism is reused (parsing a
-    1268-species mechanism takes about 0.8 s).
+    1268-species mechanism takes about 0.8 s). ``detail``: receives one more line per case, its
+    SEA paths (status, largest path angle in rad, path time in s).
     """
     out_dir = Path(out_dir)
     if grid is not None and grid.gas is not None:
@@ -190,6 +191,11 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
         report(f"[{n}/{len(cases)}] {case.label}: {ds.attrs['status']} in {time.perf_counter() - started:.2f} s, "
                f"balance residual {float(ds['balance_residual']):.1e}{why}; {_clock(elapsed)} elapsed, "
                f"about {_clock(elapsed / done * (to_run - done))} left")
+        if detail is not None and "sea_status" in ds:
+            detail("    SEA paths: " + ", ".join(
+                f"{m} {st} {a:.3g} rad {w:.2f} s" for m, st, a, w in zip(
+                    ds["metric"].values, ds["sea_status"].values, ds["largest_path_angle"].values,
+                    ds["sea_wall_time"].values)))
     return written
 
 
@@ -286,7 +292,8 @@ def storage_error(folder: Path, err: OSError, what: str, kept: str) -> StorageEr
 LOW_SPACE_BYTES = 64 * 2**20
 
 
-def run_grid(config: dict, results: str | Path = "results", report: Callable[[str], None] = print) -> xr.Dataset:
+def run_grid(config: dict, results: str | Path = "results", report: Callable[[str], None] = print,
+             detail: Callable[[str], None] | None = None) -> xr.Dataset:
     """The whole job in one process: every case, then the summary. Reruns skip finished case files.
 
     The results folder is locked for the run; a second run on the same folder is refused.
@@ -299,7 +306,7 @@ def run_grid(config: dict, results: str | Path = "results", report: Callable[[st
         except OSError as err:
             raise storage_error(results, err, f"the lock file {LOCK_NAME}", "nothing was run") from None
         files = run_cases(config, list(grid.cases), results / "cases", report=report, skip_existing=True,
-                          grid=grid)
+                          grid=grid, detail=detail)
         try:
             return write_summary(files, results / "summary.nc", results / "cases.csv")
         except OSError as err:
