@@ -68,8 +68,30 @@ def load_seconds() -> float:
     return time.perf_counter() - started
 
 
+def _cached(module) -> bool:
+    """Whether numba's disk cache holds compiled kernels of ``module`` (its index files, beside
+    the module, in NUMBA_CACHE_DIR or in numba's user-wide cache)."""
+    import os
+    from pathlib import Path
+
+    places = [Path(module.__file__).parent / "__pycache__"]
+    if os.environ.get("NUMBA_CACHE_DIR"):
+        places.append(Path(os.environ["NUMBA_CACHE_DIR"]))
+    try:  # where numba caches when the package folder is read-only
+        from numba.misc.appdirs import user_cache_dir
+
+        places.append(Path(user_cache_dir(appname="numba")))
+    except ImportError:
+        pass
+    return any(any(place.rglob("_kernels.*.nbi")) for place in places if place.is_dir())
+
+
 def _compile():
     from . import _kernels
+    from ..messages import say
+
+    if not _cached(_kernels):
+        say("note: compiling the SEA kernels with numba, once for this installation (about 20 s)")
 
     # compile (or load from numba's disk cache) now, on a one-species dummy, so that the first path
     # does not pay for it inside its own time
