@@ -21,6 +21,7 @@ import sys
 from pathlib import Path
 
 from .errors import InputError, StorageError
+from .fileformat import FormatError
 
 EXIT_INPUT = 2
 EXIT_STORAGE = 74  # EX_IOERR of sysexits.h
@@ -245,6 +246,9 @@ def main(argv: list[str] | None = None) -> int:
         return args.func(args)
     except InputError as err:
         print(f"sigmagrid: error: {err.field}: {err.message}", file=sys.stderr)
+        return EXIT_INPUT
+    except FormatError as err:  # a file of another layout: recompute it
+        print(f"sigmagrid: error: {err}", file=sys.stderr)
         return EXIT_INPUT
     except StorageError as err:
         print(f"sigmagrid: error: {err.message}", file=sys.stderr)
