@@ -70,12 +70,12 @@ def open_checked(path: str | Path, kind: str = "") -> xr.Dataset:
         return ds.load()
 
 
-def reaction_coords(index, equations, duplicate_group, reversible) -> dict:
+def reaction_coords(index, equation, duplicate_group, reversible) -> dict:
     """The ``reaction`` dimension coordinate (source-mechanism index) and its auxiliary
     coordinates ``equation``, ``duplicate_group`` (index of the group's first member) and
     ``reversible``, as (dims, values) pairs; attributes come from :mod:`sigmagrid.fileformat`."""
     return {"reaction": ("reaction", np.asarray(index, dtype=np.int64)),
-            "equation": ("reaction", np.asarray(equations, dtype=str)),
+            "equation": ("reaction", np.asarray(equation, dtype=str)),
             "duplicate_group": ("reaction", np.asarray(duplicate_group, dtype=np.int64)),
             "reversible": ("reaction", np.asarray(reversible).astype(np.int8))}
 
