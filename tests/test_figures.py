@@ -249,7 +249,7 @@ def sea_case_file(tmp_path_factory, h2o2):
         idx = store.choose_samples(rel.time, rel.progress, rel.temperature, settings.max_samples)
         assert idx.size == ds.sizes["time"]
         extra = sea.compare(gas, info, rel, idx)
-        extra = extra.rename({"progress": "sea_progress"}).drop_vars(["reaction", "species", "time"])
+        extra = extra.drop_vars(["reaction", "species", "time"])
         ds = xr.merge([ds, extra.assign_coords(time=ds["time"])], compat="override")
     path = tmp_path_factory.mktemp("sea") / f"{case.case_id}.nc"
     store.write_atomic(ds, path)
