@@ -473,7 +473,10 @@ REFERENCES = {
 def history(action: str) -> str:
     """``history`` text: the UTC time, the command line of this process and what it did."""
     now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
-    return f"{now}: {shlex.join([sys.argv[0].rsplit('/', 1)[-1], *sys.argv[1:]])} ({action})"
+    program = sys.argv[0].rsplit("/", 1)[-1] if sys.argv and sys.argv[0] else "python"
+    if program == "__main__.py":  # python -m sigmagrid
+        program = "sigmagrid"
+    return f"{now}: {shlex.join([program, *sys.argv[1:]])} ({action})"
 
 
 def finish(ds, kind: str, action: str):
@@ -561,7 +564,10 @@ def markdown() -> str:
         "elapsed-time axis `time` of a case file is in plain seconds without a reference date (CF section "
         "4.4), so that readers do not decode it to nanosecond calendar dates. Every number carries `units` "
         "(UDUNITS-2 spelling, `1` for dimensionless); text variables carry none. Integer codes carry "
-        "`flag_values` and `flag_meanings`.",
+        "`flag_values` and `flag_meanings`. Two of compliance-checker's recommendations (not requirements) "
+        "are not followed: the per-sample arrays keep `time` first, as (time, reaction), so that a sample "
+        "is contiguous (CF section 2.4 recommends other dimensions left of T), and netCDF-C's own "
+        "`_QuantizeBitRoundNumberOfSignificantBits` attribute begins with an underscore (section 2.3).",
         "",
         f"The global attribute `{VERSION_ATTRIBUTE}` holds the layout version, \"{FORMAT_VERSION}\". "
         "sigmagrid reads files of the same major version and refuses any other, or a file without the "
