@@ -10,7 +10,7 @@
     alignment           cos theta between the observed rates and steepest ascent, per metric,
                         against log time and against progress
 
-The SEA figures need the SEA variables (``alignment(metric, time)``, ``sea_time(metric, progress)``,
+The SEA figures need the SEA variables (``alignment(metric, time)``, ``sea_time(metric, sea_progress)``,
 ...); a file without them gets the other figures and a note saying why these were skipped.
 """
 
@@ -282,8 +282,8 @@ class SeaView:
 
     metrics: list[str]
     progress: np.ndarray  # lambda grid, 1
-    time: np.ndarray  # (metric, progress), s
-    temperature: np.ndarray  # (metric, progress), K
+    time: np.ndarray  # (metric, sea_progress), s
+    temperature: np.ndarray  # (metric, sea_progress), K
     status: list[str]
     alignment: np.ndarray | None  # (metric, time), 1
 
