@@ -76,7 +76,7 @@ def test_irreversible_reactions_are_counted_flagged_and_noted(tmp_path):
     assert float(ds["mole_fraction"][-1, k]) < 0.9 * gas.X[k]
     # its affinity at the end, from Cantera's K_c and the concentrations (mass action), is negative:
     # it destroys entropy, and the stored integral and the share say so
-    j = [str(e) for e in ds["reaction"].values].index("H2 + O => H + OH")
+    j = [str(e) for e in ds["equation"].values].index("H2 + O => H + OH")
     edited = ct.Solution(str(next(tmp_path.glob("edited.yaml"))))
     edited.TPX = float(ds["temperature"][-1]), float(ds["pressure"][-1]), ds["mole_fraction"][-1].values.astype(float)
     nu = (edited.product_stoich_coeffs - edited.reactant_stoich_coeffs)[:, j]

@@ -17,7 +17,7 @@ def test_case_then_show(tmp_path):
         assert ds.attrs["status"] == "relaxed"
         for name in ("temperature", "pressure", "volume", "mole_fraction", "entropy", "affinity", "forward_rate",
                      "reverse_rate", "net_rate", "entropy_production", "entropy_production_total",
-                     "entropy_produced", "reversible", "balance_residual", "ignition_delay",
+                     "entropy_produced", "reversible", "equation", "balance_residual", "ignition_delay",
                      "equilibrium_temperature"):
             assert name in ds.variables, name
         for name, var in ds.variables.items():

@@ -226,8 +226,8 @@ def test_palette_is_okabe_ito():
 def test_labels_carry_units_and_readable_equations():
     assert plotstyle.axis_label("net rate", "mol m-3 s-1") == "net rate [mol m⁻³ s⁻¹]"
     assert plotstyle.axis_label("entropy", "J K-1") == "entropy [J K⁻¹]"
-    assert plotstyle.equation_label("2 OH (+M) <=> H2O2 (+M)", 21) == "R22  2 OH (+M) ⇌ H₂O₂ (+M)"
-    assert plotstyle.equation_label("H + O2 => O + OH", 0, duplicate=True) == "R1  H + O₂ → O + OH  (dup.)"
+    assert plotstyle.equation_label("2 OH (+M) <=> H2O2 (+M)", 21) == "R21  2 OH (+M) ⇌ H₂O₂ (+M)"
+    assert plotstyle.equation_label("H + O2 => O + OH", 0, duplicate=True) == "R0  H + O₂ → O + OH  (dup.)"
 
 
 @pytest.fixture(scope="module")
@@ -249,7 +249,7 @@ def sea_case_file(tmp_path_factory, h2o2):
         idx = store.choose_samples(rel.time, rel.progress, rel.temperature, settings.max_samples)
         assert idx.size == ds.sizes["time"]
         extra = sea.compare(gas, info, rel, idx)
-        extra = extra.rename({"progress": "sea_progress"}).drop_vars(["reaction", "species", "time"])
+        extra = extra.drop_vars(["reaction", "species", "time"])
         ds = xr.merge([ds, extra.assign_coords(time=ds["time"])], compat="override")
     path = tmp_path_factory.mktemp("sea") / f"{case.case_id}.nc"
     store.write_atomic(ds, path)

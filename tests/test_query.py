@@ -87,7 +87,7 @@ def test_top_reactions_against_the_case_files(finished):
         produced = store.open_case(finished / "cases" / f"{cid}.nc")["entropy_produced"].values
         shares.append(produced / produced.sum())
     mean = np.mean(shares, axis=0)
-    got = top.set_index("reaction_index")["share_mean [1]"]
+    got = top.set_index("reaction")["share_mean [1]"]
     assert np.allclose(got.loc[np.arange(mean.size)], mean, rtol=1e-12, atol=1e-15)
     assert got.sum() == pytest.approx(1.0, abs=1e-9)  # the shares of each case sum to 1
     assert list(top["rank [1]"]) == list(range(1, len(top) + 1))
@@ -127,7 +127,7 @@ def test_case_table_and_sea_columns_when_present(finished, tmp_path):
     cases.mkdir()
     for path in (finished / "cases").glob("*.nc"):
         plain = store.open_case(path)
-        store.write_atomic(plain.drop_dims([d for d in ("metric",) if d in plain.dims]), cases / path.name)
+        store.write_atomic(plain.drop_dims([d for d in ("metric", "sea_progress") if d in plain.dims]), cases / path.name)
     table = query.case_table(s, None, cases)
     assert not any(c.startswith(("fit_quality", "largest_path_angle")) for c in table.columns)
     # one file that carries it: its agreement shows up as columns, the others are missing there
@@ -148,7 +148,7 @@ def test_output_formats(finished):
     csv = run_cli(*base, "--format", "csv")
     assert csv.returncode == 0, csv.stderr
     frame = pd.read_csv(io.StringIO(csv.stdout))
-    assert list(frame.columns)[:4] == ["rank [1]", "reaction", "reaction_index", "share_mean [1]"] and len(frame) == 4
+    assert list(frame.columns)[:4] == ["rank [1]", "reaction", "equation", "share_mean [1]"] and len(frame) == 4
     js = run_cli(*base, "--format", "json")
     records = json.loads(js.stdout)
     assert [r["reaction"] for r in records] == list(frame["reaction"])

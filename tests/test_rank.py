@@ -94,7 +94,7 @@ def test_local_share_is_the_published_epa_ratio(reduced):
     cases = grid_mod.expand(config).cases
     for case in cases[:4]:
         ref = _reference_local_shares(config, case)
-        ours = r["local_share"].sel(case=case.case_id).values
+        ours = r["local_share_peak"].sel(case=case.case_id).values
         big = ref > 1e-3
         # stored samples (500 per case) against every step: peaks agree to a few per cent
         assert np.allclose(ours[big], ref[big], rtol=0.05), (case.label, np.c_[ours[big], ref[big]])
@@ -109,7 +109,7 @@ def test_epa_kept_set_reasoned_out(reduced):
     # 'H + O2 + N2 <=> HO2 + N2' (N2 is 70 % of the mixture) is a main chain-terminating step.
     config, results, _ = reduced
     r = _ranking(results)
-    eqs = list(r["reaction"].values)
+    eqs = list(r["equation"].values)
     argon = eqs.index("H + O2 + AR <=> HO2 + AR")
     nitrogen = eqs.index("H + O2 + N2 <=> HO2 + N2")
     assert r["local_share_max"].values[argon] == 0.0
@@ -233,7 +233,7 @@ def test_entropy_consuming_reaction_is_flagged_not_ranked(irreversible):
     config, folder = irreversible
     files = sorted((folder / "cases").glob("*.nc"))
     ranking = rank.write_ranking(folder / "summary.nc", files, folder / "ranking.csv", folder / "ranking.nc")
-    eqs = list(ranking["reaction"].values)
+    eqs = list(ranking["equation"].values)
     j = eqs.index("H + H2O => H2 + OH")
     assert ranking["negative_entropy"].values[j] == 1 and ranking["flag_reason"].values[j] == "irreversible"
     assert ranking["most_negative_share"].values[j] < 0
@@ -243,9 +243,9 @@ def test_entropy_consuming_reaction_is_flagged_not_ranked(irreversible):
     # shares still sum to 1 with the negative one included
     assert np.all(np.abs(ranking["integrated_share"].sum("reaction").values - 1.0) <= 1e-9)
     table = pd.read_csv(folder / "ranking.csv")
-    row = table[table["reaction"] == "H + H2O => H2 + OH"].iloc[0]
-    assert bool(row["negative_entropy"]) and pd.isna(row["rank_local [1]"])
-    assert table.iloc[-1]["reaction"] == "H + H2O => H2 + OH"  # listed, after every ranked reaction
+    row = table[table["equation"] == "H + H2O => H2 + OH"].iloc[0]
+    assert bool(row["negative_entropy"]) and pd.isna(row["rank_local [1]"]) and row["reaction"] == j
+    assert table.iloc[-1]["equation"] == "H + H2O => H2 + OH"  # listed, after every ranked reaction
     # kept by default (a criterion on entropy production cannot judge it), dropped on request
     assert rank.kept_reactions(ranking, "local", 0.5)[j]
     assert not rank.kept_reactions(ranking, "local", 0.0, negative="drop")[j]
@@ -268,11 +268,11 @@ def test_progress_grid_matches_the_full_resolution_times(reduced):
             t_full = float(ds["time_to_progress"].sel(progress_level=level))
             t_grid = float(p["time"].sel(case=cid, progress=level))
             assert t_grid == pytest.approx(t_full, rel=2e-3)
-    total = p["entropy_share"].sum("reaction")
+    total = p["local_share"].sum("reaction")
     assert np.nanmax(np.abs(total.values - 1)) < 1e-5  # float32 storage
     rich = p.where((p.equivalence_ratio > 1) & (p.initial_pressure == 1013250.0), drop=True)
     assert rich.sizes["case"] == 2
-    assert rich["entropy_share"].sel(progress=0.5).mean("case").to_series().idxmax() in p["reaction"].values
+    assert rich["local_share"].sel(progress=0.5).mean("case").to_series().idxmax() in p["reaction"].values
 
 
 def test_interpolation_weights_levels_beyond_the_path_are_missing():
@@ -380,8 +380,8 @@ def test_query_by_local_share_agrees_with_the_ranking(reduced):
 
     _, results, _ = reduced
     r = _ranking(results)
-    everything = query.top_reactions_local(r, None, n=r.sizes["reaction"]).set_index("reaction_index")
+    everything = query.top_reactions_local(r, None, n=r.sizes["reaction"]).set_index("reaction")
     assert np.allclose(everything["local_share_max [1]"].sort_index(), r["local_share_max"].values, equal_nan=True)
-    iso = query.top_reactions_local(r, {"reactor": "isolated"}, n=r.sizes["reaction"]).set_index("reaction_index")
+    iso = query.top_reactions_local(r, {"reactor": "isolated"}, n=r.sizes["reaction"]).set_index("reaction")
     assert (iso["local_share_max [1]"].sort_index().fillna(0) <= r["local_share_max"].fillna(0).values + 1e-15).all()
     assert set(iso["case_of_max"]) - {""} <= {str(x) for x in r["label"].values if str(x).startswith("isolated")}

@@ -201,4 +201,4 @@ def test_the_define_first_writer_writes_what_xarray_writes(case_files, tmp_path,
             b = {k: v for k, v in ours[var].encoding.items() if k != "source"}
             assert repr(a) == repr(b), (name, var)
         written[name] = ours
-    assert "sea_status" in written["case"] and "progress" in written["case"].dims  # the SEA part was written
+    assert "sea_status" in written["case"] and "sea_progress" in written["case"].dims  # the SEA part was written

@@ -48,7 +48,7 @@ def test_summary_has_case_coordinates_and_shares(finished):
         assert s.sizes["case"] == 8
         for coord in ("reactor", "equivalence_ratio", "initial_temperature", "initial_pressure", "status"):
             assert coord in s.coords
-        assert np.allclose(s["entropy_share"].sum("reaction"), 1.0, atol=1e-9)
+        assert np.allclose(s["integrated_share"].sum("reaction"), 1.0, atol=1e-9)
         rich = s.where((s.equivalence_ratio > 1) & (s.reactor == "isolated"), drop=True)
         assert rich.sizes["case"] == 2
         assert s["entropy_produced"].attrs["units"] == "J K-1"

@@ -26,7 +26,7 @@ import os
 import sys
 from pathlib import Path
 
-from .errors import InputError, StorageError
+from .errors import FormatError, InputError, StorageError
 from .messages import QUIET, NORMAL, VERBOSE, detail, say, set_level
 
 EXIT_INPUT = 2
@@ -432,6 +432,9 @@ def main(argv: list[str] | None = None) -> int:
         return args.func(args)
     except InputError as err:
         print(f"sigmagrid: error: {err.field}: {err.message}", file=sys.stderr)
+        return EXIT_INPUT
+    except FormatError as err:  # a file of another layout: recompute it
+        print(f"sigmagrid: error: {err}", file=sys.stderr)
         return EXIT_INPUT
     except StorageError as err:
         print(f"sigmagrid: error: {err.message}", file=sys.stderr)

@@ -6,7 +6,7 @@
     sigmagrid assess-cut CONFIG --mechanism M ...         rerun cases on one reduced mechanism
     sigmagrid cut-report CONFIG --ranking N ...           reduction.csv / reduction.nc
     sigmagrid reduce CONFIG [--results D]                 all of the above in this process
-    sigmagrid query top|cases|at|bench ...                questions to a finished grid
+    sigmagrid query top|cases|at|reaction|bench ...       questions to a finished grid
 
 Kept apart from ``cli.py`` so that the core commands stay short; ``cli.build_parser`` calls
 :func:`add_commands`.
@@ -193,6 +193,15 @@ def cmd_query_at(args) -> int:
     return _emit(table, args.format, f"# {len(table)} case(s) at progress {table.attrs['progress']:g}")
 
 
+def cmd_query_reaction(args) -> int:
+    from . import query
+
+    s = query.open_dataset(args.summary, "--summary")
+    table = query.reaction_cases(s, args.reaction, query.parse_selection(args.select))
+    return _emit(table, args.format, f"# reaction {table.attrs['reaction']} ({table.attrs['equation']}) in "
+                                     f"{len(table)} case(s)")
+
+
 def cmd_query_bench(args) -> int:
     from . import query
 
@@ -288,6 +297,12 @@ def add_commands(sub) -> None:
     p.add_argument("--species", default="", help="mole fractions to show, comma-separated")
     _query_common(p, progress=True)
     p.set_defaults(func=cmd_query_at)
+
+    p = qs.add_parser("reaction", help="one reaction's integrated share and entropy produced in each selected case")
+    p.add_argument("reaction", help="reaction index (the files' reaction coordinate) or its equation, quoted")
+    p.add_argument("--summary", default="results/summary.nc")
+    _query_common(p)
+    p.set_defaults(func=cmd_query_reaction)
 
     p = qs.add_parser("bench", help="time the queries on a synthetic 1,000-case summary")
     p.add_argument("--cases", type=int, default=1000)

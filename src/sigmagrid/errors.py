@@ -21,3 +21,7 @@ class StorageError(RuntimeError):
     def __init__(self, message: str):
         self.message = message
         super().__init__(message)
+
+
+class FormatError(ValueError):
+    """A file of another major format version (or of none): recompute it."""

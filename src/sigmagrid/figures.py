@@ -10,7 +10,7 @@
     alignment           cos theta between the observed rates and steepest ascent, per metric,
                         against log time and against progress
 
-The SEA figures need the SEA variables (``alignment(metric, time)``, ``sea_time(metric, progress)``,
+The SEA figures need the SEA variables (``alignment(metric, time)``, ``sea_time(metric, sea_progress)``,
 ...); a file without them gets the other figures and a note saying why these were skipped.
 """
 
@@ -59,12 +59,12 @@ def open_case_file(path: str | Path) -> xr.Dataset:
 
 
 def reaction_labels(ds: xr.Dataset) -> list[str]:
-    """Legend text for every reaction, with R-numbers and duplicate marks."""
-    equations = [str(e) for e in ds["reaction"].values]
+    """Legend text for every reaction, with R-numbers (the reaction index) and duplicate marks."""
+    equations = [str(e) for e in ds["equation"].values]
     seen = {}
     for e in equations:
         seen[e] = seen.get(e, 0) + 1
-    return [ps.equation_label(e, j, seen[e] > 1) for j, e in enumerate(equations)]
+    return [ps.equation_label(e, int(j), seen[e] > 1) for j, e in zip(ds["reaction"].values, equations)]
 
 
 def top_reactions(ds: xr.Dataset, n: int) -> np.ndarray:
@@ -282,8 +282,8 @@ class SeaView:
 
     metrics: list[str]
     progress: np.ndarray  # lambda grid, 1
-    time: np.ndarray  # (metric, progress), s
-    temperature: np.ndarray  # (metric, progress), K
+    time: np.ndarray  # (metric, sea_progress), s
+    temperature: np.ndarray  # (metric, sea_progress), K
     status: list[str]
     alignment: np.ndarray | None  # (metric, time), 1
 
@@ -312,10 +312,9 @@ def _potential_label(ds: xr.Dataset) -> str:
 
 
 def _sample_progress(ds: xr.Dataset) -> np.ndarray:
-    """Progress lambda of each stored sample (1), whatever the SEA layout calls its own axis."""
-    for name, var in ds.data_vars.items():
-        if var.dims == ("time",) and str(var.attrs.get("long_name", "")).startswith("progress"):
-            return np.asarray(var.values, dtype=float)
+    """Progress lambda of each stored sample (1): the case file's ``path_progress``."""
+    if "path_progress" in ds and ds["path_progress"].dims == ("time",):
+        return np.asarray(ds["path_progress"].values, dtype=float)
     return np.full(ds.sizes["time"], np.nan)
 
 

@@ -198,8 +198,7 @@ def _read_table(path: str | Path, field: str) -> pd.DataFrame:
         raise InputError(field, f"'{path}' does not exist")
     try:
         if path.suffix == ".nc":
-            with xr.open_dataset(path) as ds:
-                return ds.load()
+            return store.open_checked(path)
         table = pd.read_csv(path)
     except Exception as err:  # noqa: BLE001
         raise InputError(field, f"cannot read '{path}': {type(err).__name__}: {err}") from None
@@ -217,21 +216,23 @@ def _ranking_frame(source) -> pd.DataFrame:
             raise InputError("--ranking", "is not a ranking file (ranking.nc from 'sigmagrid rank'): it lacks "
                              + ", ".join(v for v in need if v not in source))
         frame = pd.DataFrame({
-            "reaction": source["reaction"].values.astype(str),
+            "reaction": source["equation"].values.astype(str),
             "local_share_max": source["local_share_max"].values,
             "integrated_share_max": source["integrated_share_max"].values,
             "integrated_share_mean": source["integrated_share_mean"].values,
             "rank_local": source["rank"].sel(criterion="local").values,
             "negative_entropy": source["negative_entropy"].values.astype(bool)})
-        frame["index"] = np.arange(len(frame))
+        frame["index"] = source["reaction"].values.astype(float)
     else:
         frame = source.copy()
-        need = ["reaction", "local_share_max", "integrated_share_max", "integrated_share_mean", "rank_local"]
+        need = ["reaction", "equation", "local_share_max", "integrated_share_max", "integrated_share_mean",
+                "rank_local"]
         missing = [c for c in need if c not in frame]
         if missing:
             raise InputError("--ranking", f"is not a ranking table (ranking.csv): it lacks {', '.join(missing)}")
         frame["negative_entropy"] = frame.get("negative_entropy", False)
-        frame["index"] = np.nan  # csv rows are sorted by rank: the mechanism order is not known
+        frame["index"] = frame["reaction"].astype(float)
+        frame["reaction"] = frame["equation"].astype(str)
     frame.attrs["normalized"] = True
     return frame
 

@@ -256,6 +256,9 @@ class MechanismInfo:
         members with the same reactants and products); singletons have a group of their own.
     negative_prefactor : bool array (n_reactions,)
         Arrhenius pre-exponential factor below zero (a fitting device inside duplicate groups).
+    source_index : int array (n_reactions,)
+        Index of each reaction in the source mechanism: its position in this file, or the
+        :data:`SOURCE_INDEX_FIELD` a cut recorded (see :func:`source_indices`).
     """
 
     equations: tuple[str, ...]
@@ -265,6 +268,14 @@ class MechanismInfo:
     species: tuple[str, ...]
     elements: tuple[str, ...]
     notes: tuple[str, ...] = field(default_factory=tuple)
+    source_index: np.ndarray | None = None
+
+    @property
+    def reaction_index(self) -> np.ndarray:
+        """The reaction coordinate of the files: :attr:`source_index`, or the positions."""
+        if self.source_index is None:
+            return np.arange(len(self.equations))
+        return np.asarray(self.source_index, dtype=np.int64)
 
     @property
     def n_irreversible(self) -> int:
@@ -284,6 +295,26 @@ def _prefactor(rate) -> float:
     if high is not None and hasattr(high, "pre_exponential_factor"):
         return float(high.pre_exponential_factor)
     return float("nan")
+
+
+#: Field of a reaction in a mechanism YAML file that sigmagrid's cuts write: the reaction's index in
+#: the full mechanism, so the files of a cut use the full mechanism's reaction indices.
+SOURCE_INDEX_FIELD = "source-reaction-index"
+
+
+def source_indices(gas: ct.Solution) -> np.ndarray:
+    """Index of each reaction of ``gas`` in its source mechanism (int64): the
+    :data:`SOURCE_INDEX_FIELD` of a cut's reactions, else the reaction's position. A file whose
+    recorded indices are incomplete, repeated or not whole numbers falls back to the positions."""
+    positions = np.arange(gas.n_reactions, dtype=np.int64)
+    recorded = []
+    for j in range(gas.n_reactions):
+        value = gas.reaction(j).input_data.get(SOURCE_INDEX_FIELD)
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 0:
+            return positions
+        recorded.append(int(value))
+    out = np.array(recorded, dtype=np.int64)
+    return out if np.unique(out).size == out.size else positions
 
 
 def describe(gas: ct.Solution) -> MechanismInfo:
@@ -322,4 +353,5 @@ def describe(gas: ct.Solution) -> MechanismInfo:
         species=tuple(gas.species_names),
         elements=tuple(gas.element_names),
         notes=tuple(notes),
+        source_index=source_indices(gas),
     )

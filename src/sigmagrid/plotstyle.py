@@ -61,12 +61,13 @@ def species_label(name: str) -> str:
 def equation_label(equation: str, index: int | None = None, duplicate: bool = False) -> str:
     """A Cantera reaction equation as printed in a legend: 'R11  H + O₂ ⇌ O + OH'.
 
-    ``index`` counts from 0 as Cantera does and is printed counting from 1, as mechanism listings
-    do. Duplicates share an equation, so they are told apart by the number and a 'dup.' mark.
+    ``index`` is the files' ``reaction`` coordinate (from 0, as Cantera counts), printed as it is
+    so that a label names the value to select. Duplicates share an equation, so they are told
+    apart by the number and a 'dup.' mark.
     """
     text = equation.replace("<=>", "⇌").replace("=>", "→")
     text = " ".join(species_label(tok) for tok in text.split(" "))
-    prefix = f"R{index + 1}  " if index is not None else ""
+    prefix = f"R{index}  " if index is not None else ""
     return f"{prefix}{text}" + ("  (dup.)" if duplicate else "")
 
 

@@ -1,13 +1,13 @@
 """Every case of a grid on one progress grid: a rectangular (case, progress, ...) dataset.
 
 The progress lambda = (Phi - Phi_0) / (Phi_eq - Phi_0) runs from 0 to 1 in every case (Phi is S in
-the adiabatic reactors, S - H/T in the isothermal one; DESIGN section 4). Resampled onto one
+the adiabatic reactors, S - H/T in the isothermal one). Resampled onto one
 lambda grid, questions across cases become one selection, for example the reactions that dominate
 at half progress in the rich cases at 10 bar::
 
     p = xr.open_dataset("results/progress.nc")
     rich = p.where((p.equivalence_ratio > 1) & (p.initial_pressure == 1013250.0), drop=True)
-    rich.entropy_share.sel(progress=0.5).mean("case").to_series().nlargest(5)
+    rich.local_share.sel(progress=0.5).mean("case").to_series().nlargest(5)
 
 Resampling is linear in lambda between the stored samples of each case file. Where the stored
 progress decreases by round-off its running maximum is used, so lambda is a monotone path
@@ -24,7 +24,7 @@ from typing import Callable
 import numpy as np
 import xarray as xr
 
-from . import store
+from . import fileformat, store
 
 #: Levels always on the grid, so that ``.sel(progress=0.5)`` is exact.
 KEY_LEVELS = (0.0, 0.001, 0.01, 0.1, 0.25, 0.5, 0.75, 0.9, 0.99, 0.999, 1.0)
@@ -78,25 +78,24 @@ def _carry(values: np.ndarray, lower, upper, weight) -> np.ndarray:
 
 
 def path_progress(ds: xr.Dataset) -> np.ndarray:
-    """The progress of each stored sample of a case file (1): ``path_progress`` (time), or the
-    older ``progress`` (time); an empty array when the file has neither."""
-    for name in ("path_progress", "progress"):
-        if name in ds.variables and ds[name].dims == ("time",):
-            return np.asarray(ds[name].values, dtype=float)
+    """The progress of each stored sample of a case file (1), ``path_progress`` (time); an empty
+    array when the file has none."""
+    if "path_progress" in ds.variables and ds["path_progress"].dims == ("time",):
+        return np.asarray(ds["path_progress"].values, dtype=float)
     return np.array([])
 
 
 def resample_case(ds: xr.Dataset, levels: np.ndarray) -> dict[str, np.ndarray]:
     """One case file's path on the progress levels: arrays keyed by variable name.
 
-    ``entropy_share`` is sigma_j / sigma with sigma the sum of the stored sigma_j at the same
+    ``local_share`` is sigma_j / sigma with sigma the sum of the stored sigma_j at the same
     level (so it sums to 1 over reactions wherever sigma is not zero); NaN where sigma is zero.
     """
     nl = levels.size
     ns, nr = ds.sizes["species"], ds.sizes["reaction"]
     out = {"time": np.full(nl, np.nan), "temperature": np.full(nl, np.nan), "pressure": np.full(nl, np.nan),
            "mole_fraction": np.full((nl, ns), np.nan), "entropy_production_total": np.full(nl, np.nan),
-           "entropy_share": np.full((nl, nr), np.nan), "affinity": np.full((nl, nr), np.nan),
+           "local_share": np.full((nl, nr), np.nan), "affinity": np.full((nl, nr), np.nan),
            "net_rate": np.full((nl, nr), np.nan)}
     progress = path_progress(ds)
     if progress.ndim != 1 or progress.size < 2 or not np.isfinite(progress).any():
@@ -111,28 +110,19 @@ def resample_case(ds: xr.Dataset, levels: np.ndarray) -> dict[str, np.ndarray]:
     total = sigma_j.sum(axis=1)
     out["entropy_production_total"] = total
     with np.errstate(invalid="ignore", divide="ignore"):
-        out["entropy_share"] = np.where(total[:, None] != 0, sigma_j / total[:, None], np.nan)
+        out["local_share"] = np.where(total[:, None] != 0, sigma_j / total[:, None], np.nan)
     for name in ("affinity", "net_rate"):
         out[name] = _carry(np.asarray(ds[name].values, dtype=float), lower, upper, weight)
-    for name in ("mole_fraction", "entropy_share", "affinity", "net_rate"):
+    for name in ("mole_fraction", "local_share", "affinity", "net_rate"):
         out[name] = out[name].astype(np.float32)  # stored as float32: keep the memory of a big grid small
     return out
 
 
-_READ = ("path_progress", "progress", "temperature", "pressure", "mole_fraction", "entropy_production", "affinity", "net_rate")
+_READ = ("path_progress", "temperature", "pressure", "mole_fraction", "entropy_production", "affinity", "net_rate")
 
-_VARIABLES = {
-    "time": (("case", "progress"), "s", "time at which the case reaches the progress level"),
-    "temperature": (("case", "progress"), "K", "temperature"),
-    "pressure": (("case", "progress"), "Pa", "pressure"),
-    "mole_fraction": (("case", "progress", "species"), "1", "mole fraction"),
-    "entropy_production_total": (("case", "progress"), "W m-3 K-1", "total entropy production density sigma"),
-    "entropy_share": (("case", "progress", "reaction"), "1",
-                      "share sigma_j / sigma of each reaction in the entropy production (negative for a "
-                      "reaction that consumes entropy)"),
-    "affinity": (("case", "progress", "reaction"), "J mol-1", "affinity A_j = -sum_k nu_kj mu_k"),
-    "net_rate": (("case", "progress", "reaction"), "mol m-3 s-1", "net rate of progress q_j"),
-}
+#: The resampled variables; their dimensions, units and descriptions are in sigmagrid.fileformat.
+_VARIABLES = ("time", "temperature", "pressure", "mole_fraction", "entropy_production_total", "local_share",
+              "affinity", "net_rate")
 
 
 def resample(paths: list[str | Path], points: int = DEFAULT_POINTS,
@@ -156,17 +146,21 @@ def resample(paths: list[str | Path], points: int = DEFAULT_POINTS,
     paths = sorted(map(Path, paths), key=lambda p: p.stem)
     if not paths:
         raise ValueError("no case files to resample")
-    rows, meta, species, reactions, attrs = [], [], None, None, {}
+    rows, meta, species, reactions, attrs, reaction_aux = [], [], None, None, {}, {}
     for n, path in enumerate(paths, 1):
         try:
             with xr.open_dataset(path) as whole:  # only the variables resampled
+                fileformat.check(whole.attrs, path, "case")
                 ds = whole[[v for v in _READ if v in whole.variables]].load()
+                attrs_of_case = dict(whole.attrs)
         except Exception as err:  # a damaged file must not stop the others
             rows.append(None)
             meta.append({"case_id": path.stem, "status": "failed", "label": path.stem, "reason": str(err)})
             continue
+        ds.attrs.update(attrs_of_case)
         if reactions is None:
             species, reactions = list(ds["species"].values), list(ds["reaction"].values)
+            reaction_aux = store.reaction_coords_of(ds)
             attrs = {k: ds.attrs[k] for k in ("mechanism", "mechanism_sha256", "study") if k in ds.attrs}
         if list(ds["reaction"].values) != reactions or list(ds["species"].values) != species:
             rows.append(None)
@@ -182,11 +176,12 @@ def resample(paths: list[str | Path], points: int = DEFAULT_POINTS,
     nl, ns, nr = levels.size, len(species), len(reactions)
     shapes = {"progress": (nl,), "species": (nl, ns), "reaction": (nl, nr)}
     data = {}
-    for name, (dims, units, long_name) in _VARIABLES.items():
+    for name in _VARIABLES:
+        dims = fileformat.VARIABLES["progress"][name].dims
         shape = shapes[dims[-1]] if len(dims) == 3 else (nl,)
         stack = np.stack([r[name] if r is not None else np.full(shape, np.nan) for r in rows])
         dtype = np.float32 if len(dims) == 3 else np.float64  # 3-D fields are large; float32 as in case files
-        data[name] = (dims, stack.astype(dtype), {"units": units, "long_name": long_name})
+        data[name] = (dims, stack.astype(dtype))
 
     def column(key, default, kind=str):
         return np.array([m.get(key, default) if m.get(key) is not None else default for m in meta], dtype=kind)
@@ -195,7 +190,7 @@ def resample(paths: list[str | Path], points: int = DEFAULT_POINTS,
         "case": ("case", column("case_id", ""), {"long_name": "case id"}),
         "progress": ("progress", levels, {"units": "1", "long_name": "progress (Phi - Phi_0)/(Phi_eq - Phi_0)"}),
         "species": ("species", np.array(species, dtype=str), {"long_name": "species name"}),
-        "reaction": ("reaction", np.array(reactions, dtype=str), {"long_name": "reaction equation"}),
+        **reaction_aux,
         "label": ("case", column("label", ""), {"long_name": "case label"}),
         "reactor": ("case", column("reactor", ""), {"long_name": "reactor type"}),
         "composition_name": ("case", column("composition_name", ""), {"long_name": "mixture name"}),
@@ -208,12 +203,12 @@ def resample(paths: list[str | Path], points: int = DEFAULT_POINTS,
         "status": ("case", column("status", "failed"),
                    {"long_name": "case status: relaxed, not-relaxed or failed"}),
     }
-    return xr.Dataset(data, coords=coords, attrs={
-        "Conventions": store.CONVENTIONS,
+    cube = xr.Dataset(data, coords=coords, attrs={
         "title": f"sigmagrid cases on one progress grid {attrs.get('study', '')}".strip(),
-        "source": "sigmagrid", "history": f"resampled from {len(paths)} case files",
+        "source": "sigmagrid",
         "comment": "linear in progress between stored samples; levels beyond a case's path are NaN",
         **attrs})
+    return fileformat.finish(cube, "progress", f"resampled from {len(paths)} case files")
 
 
 def write(paths: list[str | Path], out: str | Path, points: int = DEFAULT_POINTS,

@@ -14,6 +14,11 @@ stored 1013250.0. ::
     query.top_reactions(s, {"reactor": "isolated", "equivalence_ratio": (1.01, None)}, n=5)
     p = query.open_dataset("results/progress.nc")
     query.top_reactions_at(p, 0.5, {"initial_pressure": 1013250})
+    query.reaction_cases(s, "H + O2 <=> O + OH")     # or by index: query.reaction_cases(s, 1)
+
+Reactions are named by their index (the files' ``reaction`` coordinate) or by their equation as
+the file writes it (``equation``); an equation that several reactions share (duplicates) is
+refused with the indices to choose from.
 """
 
 from __future__ import annotations
@@ -34,7 +39,8 @@ MATCH_RTOL = 1e-9
 
 
 def open_dataset(path: str | Path, what: str = "file") -> xr.Dataset:
-    """Open a summary, progress or ranking file fully into memory; a missing file is an InputError."""
+    """Open a summary, progress or ranking file fully into memory; a missing file, or one of
+    another major format version, is an InputError."""
     from . import store
 
     return store.open_input(path, what, " (run the grid first: snakemake --cores 2)")
@@ -71,6 +77,51 @@ def _match(values: np.ndarray, wanted: Any) -> np.ndarray:
         else:
             ok |= values.astype(str) == str(item)
     return ok
+
+
+def find_reaction(ds: xr.Dataset, key: int | str, field: str = "reaction") -> int:
+    """The ``reaction`` index (the files' coordinate) of ``key``: an index (int or digits) or an
+    equation as the file writes it (spaces need not match).
+
+    Raises InputError naming the allowed values for an unknown index or equation, and the
+    candidates' indices for an equation that several reactions share (duplicates).
+    """
+    index = ds["reaction"].values.astype(int)
+    text = str(key).strip()
+    if isinstance(key, (int, np.integer)) or text.isdigit():
+        wanted = int(text)
+        if wanted not in set(index.tolist()):
+            raise InputError(field, f"no reaction with index {wanted}; the file has {index.size} reactions, "
+                             f"indices {index.min()}..{index.max()}" + (" (with gaps: a cut mechanism)"
+                                                                        if index.size != index.max() - index.min() + 1 else ""))
+        return wanted
+    equations = np.array([" ".join(str(e).split()) for e in ds["equation"].values])
+    hits = index[equations == " ".join(text.split())]
+    if hits.size == 1:
+        return int(hits[0])
+    if hits.size > 1:
+        raise InputError(field, f"{text!r} matches {hits.size} reactions (duplicates), indices "
+                         f"{', '.join(map(str, hits))}: give one index")
+    raise InputError(field, f"no reaction {text!r}; give an index ({index.min()}..{index.max()}) or an equation "
+                     f"as the file writes it, e.g. {str(ds['equation'].values[0])!r}")
+
+
+def reaction_cases(summary: xr.Dataset, reaction: int | str, selection: Mapping[str, Any] | None = None
+                   ) -> pd.DataFrame:
+    """One reaction over the selected cases: its integrated share [1] and entropy produced
+    [J K-1] per case, with the case parameters. ``reaction``: index or equation (see
+    :func:`find_reaction`)."""
+    j = find_reaction(summary, reaction)
+    s = select(summary, selection).sel(reaction=j)
+    table = _case_columns(s)
+    table["integrated_share [1]"] = s["integrated_share"].values.astype(float)
+    table["entropy_produced [J K-1]"] = s["entropy_produced"].values.astype(float)
+    table.attrs.update(reaction=j, equation=str(s["equation"].values))
+    return table.sort_values("label", kind="stable").reset_index(drop=True)
+
+
+def _reaction_columns(ds: xr.Dataset) -> dict:
+    return {"reaction": ds["reaction"].values.astype(int), "equation": ds["equation"].values.astype(str)}
 
 
 def select(ds: xr.Dataset, selection: Mapping[str, Any] | None, dim: str = "case", field: str = "--select") -> xr.Dataset:
@@ -160,10 +211,10 @@ def top_reactions(summary: xr.Dataset, selection: Mapping[str, Any] | None = Non
 
     Parameters
     ----------
-    summary : ``results/summary.nc`` (its ``entropy_share`` is I_jc / sum_j I_jc, 1).
+    summary : ``results/summary.nc`` (its ``integrated_share`` is I_jc / sum_j I_jc, 1).
     by : ``mean`` (mean share over the cases) or ``max`` (largest share in any case).
 
-    Returns a DataFrame of n rows: reaction, mean and largest integrated share [1], entropy
+    Returns a DataFrame of n rows: reaction (index), equation, mean and largest integrated share [1], entropy
     produced summed over the selected cases [J K-1], and the number of cases where the share is
     negative (the reaction consumes entropy there).
     """
@@ -171,7 +222,7 @@ def top_reactions(summary: xr.Dataset, selection: Mapping[str, Any] | None = Non
         raise InputError("--by", f"{by!r} is not allowed; allowed values: mean, max")
     s = select(summary, selection)
     usable = s["status"].values.astype(str) != "failed"
-    share = s["entropy_share"].values[usable].astype(float)
+    share = s["integrated_share"].values[usable].astype(float)
     if share.size == 0 or not np.isfinite(share).any():
         raise InputError("--select", "none of the selected cases has entropy shares (all failed)")
     import warnings
@@ -179,8 +230,7 @@ def top_reactions(summary: xr.Dataset, selection: Mapping[str, Any] | None = Non
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
         table = pd.DataFrame({
-            "reaction": s["reaction"].values.astype(str),
-            "reaction_index": np.arange(s.sizes["reaction"]),  # duplicate reactions share an equation
+            **_reaction_columns(s),
             "share_mean [1]": np.nanmean(share, axis=0),
             "share_max [1]": np.nanmax(share, axis=0),
             "entropy_produced [J K-1]": np.nansum(s["entropy_produced"].values[usable], axis=0),
@@ -197,21 +247,20 @@ def top_reactions_local(ranking: xr.Dataset, selection: Mapping[str, Any] | None
                         n: int = 10) -> pd.DataFrame:
     """The reactions with the largest local share over the selected cases (EPA criterion).
 
-    ``ranking`` is ``results/ranking.nc``; its ``local_share`` (case, reaction) is the largest
+    ``ranking`` is ``results/ranking.nc``; its ``local_share_peak`` (case, reaction) is the largest
     sigma_j / sigma along each path where sigma is not negligible (see :mod:`sigmagrid.rank`).
     Columns: largest local share over the selection [1], the case label where it occurs, and
     whether the reaction consumes entropy somewhere in the grid (flagged, never ranked there).
     """
     r = select(ranking, selection)
-    local = r["local_share"].values.astype(float)
+    local = r["local_share_peak"].values.astype(float)
     if not np.isfinite(local).any():
         raise InputError("--select", "none of the selected cases was usable for the ranking")
     finite = np.isfinite(local).any(axis=0)
     best = np.where(finite, np.nanargmax(np.where(np.isfinite(local), local, -np.inf), axis=0), 0)
     labels = r["label"].values.astype(str) if "label" in r.coords else r["case"].values.astype(str)
     table = pd.DataFrame({
-        "reaction": r["reaction"].values.astype(str),
-        "reaction_index": np.arange(r.sizes["reaction"]),
+        **_reaction_columns(r),
         "local_share_max [1]": np.where(finite, local[best, np.arange(local.shape[1])], np.nan),
         "case_of_max": np.where(finite, labels[best], ""),
         "negative_entropy": r["negative_entropy"].values.astype(bool),
@@ -225,14 +274,14 @@ def top_reactions_local(ranking: xr.Dataset, selection: Mapping[str, Any] | None
 
 def top_reactions_at(progress: xr.Dataset, level: float, selection: Mapping[str, Any] | None = None,
                      n: int = 10) -> pd.DataFrame:
-    """The reactions with the largest share sigma_j / sigma at one progress level, over the selection.
+    """The reactions with the largest local share sigma_j / sigma at one progress level, over the selection.
 
     ``progress`` is ``results/progress.nc``; ``level`` (1) is taken at the nearest grid level.
     Columns: mean and largest share [1], mean affinity [J mol-1], mean net rate [mol m-3 s-1].
     """
     level = _check_level(progress, level)
     p = select(progress, selection).sel(progress=level, method="nearest")
-    share = p["entropy_share"].values.astype(float)
+    share = p["local_share"].values.astype(float)
     if not np.isfinite(share).any():
         raise InputError("--at", f"none of the selected cases reaches progress {level:g}")
     import warnings
@@ -240,8 +289,7 @@ def top_reactions_at(progress: xr.Dataset, level: float, selection: Mapping[str,
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
         table = pd.DataFrame({
-            "reaction": p["reaction"].values.astype(str),
-            "reaction_index": np.arange(p.sizes["reaction"]),
+            **_reaction_columns(p),
             "share_mean [1]": np.nanmean(share, axis=0),
             "share_max [1]": np.nanmax(share, axis=0),
             "affinity_mean [J mol-1]": np.nanmean(p["affinity"].values.astype(float), axis=0),
@@ -322,7 +370,8 @@ def case_table(summary: xr.Dataset, selection: Mapping[str, Any] | None = None,
 def at_progress(progress: xr.Dataset, level: float, selection: Mapping[str, Any] | None = None,
                 species: list[str] | None = None) -> pd.DataFrame:
     """Per selected case, the state at one progress level: time [s], temperature [K], pressure
-    [Pa], sigma [W m-3 K-1], the reaction with the largest share there and that share [1], and
+    [Pa], sigma [W m-3 K-1], the reaction with the largest local share there (index and
+    equation) and that share [1], and
     the mole fractions of ``species`` [1]."""
     level = _check_level(progress, level)
     p = select(progress, selection).sel(progress=level, method="nearest")
@@ -331,11 +380,13 @@ def at_progress(progress: xr.Dataset, level: float, selection: Mapping[str, Any]
     table["temperature [K]"] = p["temperature"].values
     table["pressure [Pa]"] = p["pressure"].values
     table["entropy_production [W m-3 K-1]"] = p["entropy_production_total"].values
-    share = p["entropy_share"].values.astype(float)
+    share = p["local_share"].values.astype(float)
     finite = np.isfinite(share).any(axis=1)
     best = np.where(finite, np.argmax(np.where(np.isfinite(share), share, -np.inf), axis=1), 0)
-    reactions = p["reaction"].values.astype(str)
-    table["dominant_reaction"] = np.where(finite, reactions[best], "")
+    table["dominant_reaction"] = pd.array(np.where(finite, p["reaction"].values.astype(int)[best], 0),
+                                          dtype="Int64")
+    table.loc[~finite, "dominant_reaction"] = pd.NA
+    table["dominant_equation"] = np.where(finite, p["equation"].values.astype(str)[best], "")
     table["dominant_share [1]"] = np.where(finite, share[np.arange(share.shape[0]), best], np.nan)
     names = list(p["species"].values.astype(str))
     for sp in species or []:
@@ -395,17 +446,22 @@ def synthetic_summary(n_cases: int = 1000, n_reactions: int = 325, seed: int = 0
     pressure = rng.choice([101325.0, 506625.0, 1013250.0], n_cases)
     reactor = rng.choice(["isolated", "constant-pressure"], n_cases)
     ids = np.array([f"{i:016x}" for i in range(n_cases)])
-    coords = {"case": ids, "reaction": np.array([f"R{j}" for j in range(n_reactions)]),
+    from . import store
+
+    coords = {"case": ids, **store.reaction_coords(np.arange(n_reactions), [f"R{j}" for j in range(n_reactions)],
+                                                   np.arange(n_reactions), np.ones(n_reactions)),
               "label": ("case", np.array([f"{r}_phi{p:g}_T{t:g}K_{i}" for i, (r, p, t) in
                                           enumerate(zip(reactor, phi, temperature))])),
               "reactor": ("case", reactor), "composition_name": ("case", np.array([f"phi{p:g}" for p in phi])),
               "equivalence_ratio": ("case", phi), "initial_temperature": ("case", temperature),
               "initial_pressure": ("case", pressure), "status": ("case", np.array(["relaxed"] * n_cases))}
-    data = {"entropy_produced": (("case", "reaction"), produced), "entropy_share": (("case", "reaction"), share),
+    data = {"entropy_produced": (("case", "reaction"), produced), "integrated_share": (("case", "reaction"), share),
             "reason": ("case", np.array([""] * n_cases))}
     for name in HEADLINE:
         data[name] = ("case", rng.lognormal(-7, 1, n_cases))
-    return xr.Dataset(data, coords=coords)
+    from . import fileformat
+
+    return fileformat.finish(xr.Dataset(data, coords=coords), "summary", "synthetic, for timing the queries")
 
 
 def benchmark(n_cases: int = 1000, n_reactions: int = 325, folder: str | Path | None = None) -> list[tuple[str, float]]:

@@ -1,11 +1,12 @@
 """Ranking of reactions by the entropy they produce across a grid, reduced mechanisms, their cost.
 
-Scores of reaction j (DESIGN section 5), all dimensionless:
+Scores of reaction j, all dimensionless:
 
 * integrated share in case c, f_jc = I_jc / sum_i I_ic, with I_jc the entropy produced by j over the
   case (J/K, from the full-resolution path). Negative for a reaction that consumes entropy; the
   shares of a case still sum to 1.
-* local share in case c, l_jc = max over stored samples t of sigma_j(t) / sigma(t), taken only where
+* local share sigma_j(t) / sigma(t) at one state; its peak in case c, l_jc = max over stored
+  samples t of sigma_j(t) / sigma(t) (``local_share_peak``), taken only where
   sigma(t) is not negligible: sigma(t) >= ``negligible`` x (largest sigma of that case), with
   ``negligible`` = 1e-3 by default. This is the entropy-production-analysis criterion for mechanism
   reduction: keep a reaction whose contribution to the entropy production rate reaches the
@@ -39,7 +40,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from . import grid as grid_mod, mechanism, store
+from . import fileformat, grid as grid_mod, mechanism, store
 from .config import cuts
 from .errors import InputError
 
@@ -160,6 +161,7 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
     ----------
     summary : the grid summary (``results/summary.nc``), dims case x reaction.
     case_files : the case files; their stored ``entropy_production`` gives the local shares.
+    The reaction coordinates (index, equation, duplicate group, reversibility) are the summary's.
     negligible : 1, see :func:`local_shares`.
 
     Usable cases: status not ``failed`` and a positive, finite total of entropy produced.
@@ -167,28 +169,29 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
     case_ids = [str(c) for c in summary["case"].values]
     by_id = {Path(p).stem: Path(p) for p in case_files}
     produced = summary["entropy_produced"].values.astype(float)
-    reactions = [str(r) for r in summary["reaction"].values]
+    reactions = summary["reaction"].values
     nr = len(reactions)
     status = summary["status"].values.astype(str)
-    sigmas, reversible, dup = [], None, None
+    reversible = summary["reversible"].values.astype(bool)
+    dup = summary["duplicate_group"].values.astype(int)
+    sigmas, readable = [], False
     for n, cid in enumerate(case_ids, 1):
         path = by_id.get(cid)
         sigma = None
         if path is not None and status[n - 1] != "failed":
             try:
                 with xr.open_dataset(path) as whole:  # only what the scores need
-                    ds = whole[["entropy_production", "reversible", "duplicate_group"]].load()
-                if ds.sizes.get("reaction") == nr:
+                    fileformat.check(whole.attrs, path, "case")
+                    ds = whole[["entropy_production"]].load()
+                if np.array_equal(ds["reaction"].values, reactions):
                     sigma = ds["entropy_production"].values.astype(float)
-                    if reversible is None:
-                        reversible = ds["reversible"].values.astype(bool)
-                        dup = ds["duplicate_group"].values.astype(int)
+                    readable = True
             except Exception:  # noqa: BLE001 - a damaged case is left out, and counted
                 sigma = None
         sigmas.append(sigma)
         if report and (n % 200 == 0 or n == len(case_ids)):
             report(f"scored {n}/{len(case_ids)} cases")
-    if reversible is None:
+    if not readable:
         raise ValueError("no readable case file with a usable path: nothing to rank")
     usable = (status != "failed") & np.isfinite(produced).all(axis=1) & (produced.sum(axis=1) > 0) \
         & np.array([s is not None for s in sigmas])
@@ -227,8 +230,8 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
     data = {
         "integrated_share": var(("case", "reaction"), sc.integrated, "1",
                                 "integrated share I_jc / sum_j I_jc of each reaction in each case (sums to 1)"),
-        "local_share": var(("case", "reaction"), sc.local, "1",
-                           "largest sigma_j / sigma along the case where sigma is not negligible"),
+        "local_share_peak": var(("case", "reaction"), sc.local, "1",
+                                "largest sigma_j / sigma along the case where sigma is not negligible"),
         "share_sum": var(("case",), np.where(usable, np.nansum(sc.integrated, axis=1), np.nan), "1", "sum over reactions of the integrated shares"),
         "usable": var(("case",), usable.astype(np.int8), "1", "case used in the ranking",
                       flag_meanings="left_out used", **flag),
@@ -244,10 +247,6 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
                     "rank of the reaction under each criterion (1 = most entropy); NaN for flagged reactions"),
         "group_score": var(("criterion", "reaction"), group_score, "1",
                            "score of the reaction's duplicate group under each criterion (what cuts use)"),
-        "reversible": var(("reaction",), reversible.astype(np.int8), "1", "reaction is reversible",
-                          flag_meanings="irreversible reversible", **flag),
-        "duplicate_group": var(("reaction",), dup.astype(np.int32), "1",
-                               "index of the first member of the reaction's duplicate group"),
         "negative_entropy": var(("reaction",), flagged.astype(np.int8), "1",
                                 "reaction consumes entropy (I_jc < 0) in some case: flagged, not ranked",
                                 flag_meanings="no yes", **flag),
@@ -260,18 +259,17 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
         "flag_reason": var(("reaction",), kind, "1", "why the reaction is flagged"),
     }
     coords = {c: summary.coords[c] for c in summary.coords if summary.coords[c].dims == ("case",)}
-    coords.update({"reaction": ("reaction", np.array(reactions, dtype=str), {"long_name": "reaction equation"}),
+    coords.update({**store.reaction_coords_of(summary),
                    "criterion": ("criterion", np.array(CRITERIA, dtype=str), {"long_name": "ranking criterion"})})
     attrs = {k: summary.attrs[k] for k in ("mechanism", "mechanism_sha256", "study") if k in summary.attrs}
-    return xr.Dataset(data, coords=coords, attrs={
-        "Conventions": store.CONVENTIONS, "title": f"sigmagrid reaction ranking {attrs.get('study', '')}".strip(),
-        "source": "sigmagrid", "history": f"ranked from {len(case_ids)} cases of the summary",
+    ranking = xr.Dataset(data, coords=coords, attrs={
+        "title": f"sigmagrid reaction ranking {attrs.get('study', '')}".strip(), "source": "sigmagrid",
         "negligible_fraction": negligible,
         "negative_tolerance": NEGATIVE_TOLERANCE, "n_cases": len(case_ids), "n_cases_used": int(usable.sum()),
         "cases_left_out": ", ".join(np.array(case_ids)[~usable]),
-        "references": "Kooshkbaghi et al., Combust. Flame 161 (2014) 1507 (entropy production analysis)",
         "comment": "local share from the stored samples of each case file; integrated share from the "
                    "full-resolution integral", **attrs})
+    return fileformat.finish(ranking, "ranking", f"ranked from {len(case_ids)} cases of the summary")
 
 
 def ranking_table(ranking: xr.Dataset) -> pd.DataFrame:
@@ -284,7 +282,8 @@ def ranking_table(ranking: xr.Dataset) -> pd.DataFrame:
         return [labels.get(c, c) for c in r[name].values.astype(str)]
 
     df = pd.DataFrame({
-        "reaction": r["reaction"].values.astype(str),
+        "reaction": r["reaction"].values.astype(int),
+        "equation": r["equation"].values.astype(str),
         "rank_local [1]": pd.array(np.where(np.isfinite(ranks["local"]), ranks["local"], np.nan), dtype="Int64"),
         "rank_integrated_max [1]": pd.array(ranks["integrated-max"], dtype="Int64"),
         "rank_integrated_mean [1]": pd.array(ranks["integrated-mean"], dtype="Int64"),
@@ -309,8 +308,7 @@ def ranking_table(ranking: xr.Dataset) -> pd.DataFrame:
 def write_ranking(summary_path, case_files, table_path, netcdf_path, negligible: float = 1e-3,
                   report: Callable[[str], None] | None = None) -> xr.Dataset:
     """Rank and write ``ranking.csv`` and ``ranking.nc`` atomically."""
-    with xr.open_dataset(summary_path) as s:
-        summary = s.load()
+    summary = store.open_checked(summary_path, "summary")
     ranking = rank(summary, case_files, negligible, report)
     store.write_atomic(ranking, netcdf_path)
     store.write_text_atomic(ranking_table(ranking).to_csv(index=False, float_format="%.8g"), table_path)
@@ -387,10 +385,13 @@ def reduced_solution(path: str | Path, keep: np.ndarray, species: list[str], nam
     concentration that is zero, and a file that names absent species does not load everywhere.
     """
     gas = mechanism.load(Path(path))  # a fresh copy: the efficiencies are edited in place below
+    source = mechanism.source_indices(gas)
     kept_species = set(species)
     reactions = []
     for j in np.flatnonzero(keep):
         r = gas.reaction(int(j))
+        # the files of the cut then use the full mechanism's reaction indices
+        r.update_user_data({mechanism.SOURCE_INDEX_FIELD: int(source[j])})
         tb = getattr(r, "third_body", None)
         if tb is not None and tb.efficiencies:
             tb.efficiencies = {k: v for k, v in tb.efficiencies.items() if k in kept_species}
@@ -467,7 +468,8 @@ def write_cuts(config: dict, ranking: xr.Dataset, out_dir: str | Path,
     """Write ``<out_dir>/<criterion>-<threshold>.yaml`` for every cut of the config."""
     path = mechanism.resolve(config["mechanism"])
     gas = mechanism.load(path, phase=config.get("phase"))
-    if list(gas.reaction_equations()) != [str(r) for r in ranking["reaction"].values]:
+    if (list(gas.reaction_equations()) != [str(e) for e in ranking["equation"].values]
+            or not np.array_equal(mechanism.source_indices(gas), ranking["reaction"].values)):
         raise InputError("mechanism", f"'{path.name}' is not the mechanism the ranking was made with")
     red = reduction_settings(config)
     out = []
@@ -535,6 +537,7 @@ def assess_cut(config: dict, mechanism_path: str | Path, summary: xr.Dataset, ca
     reduced_ids = np.array([""] * nc, dtype=object)
     reasons = np.array([""] * nc, dtype=object)
     n_species = n_reactions = -1
+    kept_index, kept_equations = np.zeros(0, dtype=np.int64), np.zeros(0, dtype=str)
     load_error = ""
     cut_config = copy.deepcopy(config)
     cut_config["mechanism"] = str(Path(mechanism_path).resolve())
@@ -545,6 +548,8 @@ def assess_cut(config: dict, mechanism_path: str | Path, summary: xr.Dataset, ca
         cut_grid = grid_mod.expand(cut_config)
         gas = mechanism.load(mechanism.resolve(cut_config["mechanism"]))
         n_species, n_reactions = gas.n_species, gas.n_reactions
+        kept_index = mechanism.source_indices(gas)
+        kept_equations = np.array(gas.reaction_equations(), dtype=str)
     except InputError as err:
         load_error = f"reduced mechanism unusable: {err.message}"
         cut_grid = None
@@ -598,11 +603,13 @@ def assess_cut(config: dict, mechanism_path: str | Path, summary: xr.Dataset, ca
         "cut_case_id": ("case", reduced_ids.astype(str), {"long_name": "id of the case in the reduced run"}),
     })
     coords = {c: full.coords[c] for c in full.coords if full.coords[c].dims == ("case",)}
-    return xr.Dataset(data, coords=coords, attrs={
-        "Conventions": store.CONVENTIONS, "title": f"sigmagrid validation of cut {name}", "source": "sigmagrid",
-        "history": f"{nc} cases rerun on {Path(mechanism_path).name}",
+    # the reactions the cut keeps, by their index in the full mechanism
+    coords.update({"reaction": ("reaction", kept_index), "equation": ("reaction", kept_equations)})
+    validation = xr.Dataset(data, coords=coords, attrs={
+        "title": f"sigmagrid validation of cut {name}", "source": "sigmagrid",
         "cut": name, "cut_mechanism": str(mechanism_path), "n_species": n_species, "n_reactions": n_reactions,
         "load_error": load_error})
+    return fileformat.finish(validation, "validation", f"{nc} cases rerun on {Path(mechanism_path).name}")
 
 
 def summarize_cuts(config: dict, ranking: xr.Dataset, cut_dir: str | Path,
@@ -697,24 +704,20 @@ def summarize_cuts(config: dict, ranking: xr.Dataset, cut_dir: str | Path,
     else:
         case_coords = {}
     ds = xr.Dataset(data, coords={"cut": ("cut", col("cut", str), {"long_name": "cut name"}), **case_coords}, attrs={
-        "Conventions": store.CONVENTIONS, "title": "sigmagrid reduced mechanisms and what they cost",
-        "source": "sigmagrid", "history": f"{len(rows)} cuts summarized", "smallest_within_tolerances": smallest,
+        "title": "sigmagrid reduced mechanisms and what they cost",
+        "source": "sigmagrid", "smallest_within_tolerances": smallest,
         **{f"tolerance_{k}": float(v) for k, v in tol.items()},
         "comment": "errors are against the full mechanism on the same cases; median is the typical error"})
-    return ds, table
+    return fileformat.finish(ds, "reduction", f"{len(rows)} cuts summarized"), table
 
 
 def write_reduction(config: dict, ranking_path, cut_dir, table_path, netcdf_path,
                     validation_paths: dict[str, str | Path] | None) -> tuple[xr.Dataset, pd.DataFrame]:
     """Read the validations, summarize the cuts, write reduction.csv and reduction.nc atomically."""
-    with xr.open_dataset(ranking_path) as r:
-        ranking = r.load()
+    ranking = store.open_checked(ranking_path, "ranking")
     validations = None
     if validation_paths is not None:
-        validations = {}
-        for name, p in validation_paths.items():
-            with xr.open_dataset(p) as v:
-                validations[name] = v.load()
+        validations = {name: store.open_checked(p, "validation") for name, p in validation_paths.items()}
     ds, table = summarize_cuts(config, ranking, cut_dir, validations)
     store.write_atomic(ds, netcdf_path)
     store.write_text_atomic(table.to_csv(index=False, float_format="%.6g"), table_path)
@@ -754,8 +757,7 @@ def reduce_in_process(config: dict, results: str | Path = "results",
     written = write_cuts(config, ranking, cut_dir, report=report)
     validations = None
     if reduction_settings(config)["validate"]:
-        with xr.open_dataset(summary_path) as s:
-            summary = s.load()
+        summary = store.open_checked(summary_path, "summary")
         validations = {}
         for cut in written:
             target = cut_dir / cut.name / "validation.nc"

@@ -52,7 +52,8 @@ def describe_case(path, top: int = 8) -> str:
         order = np.argsort(-np.nan_to_num(produced, nan=-np.inf))[:top]
         lines.append(f"  top {len(order)} reactions by entropy produced:")
         for j in order:
-            lines.append(f"    {produced[j] / total:8.2%}  {produced[j]:10.3e} J/K  {ds['reaction'].values[j]}")
+            lines.append(f"    {produced[j] / total:8.2%}  {produced[j]:10.3e} J/K  "
+                         f"R{int(ds['reaction'].values[j])} {ds['equation'].values[j]}")
     lines += _sea_lines(ds)
     ratio = float(ds["closed_vessel_pressure_ratio"])
     lines += ["  safety:",
@@ -77,7 +78,7 @@ def _sea_lines(ds) -> list[str]:
     a = ds.attrs
     if a.get("sea_skipped_reason"):
         return [f"  steepest-entropy-ascent comparison: skipped ({a['sea_skipped_reason']})"]
-    grid = ds["progress"].values
+    grid = ds["sea_progress"].values
     settings = []  # files written before the settings were kept have none
     if "sea_start_progress" in a:
         settings.append(f"from progress {a['sea_start_progress']:g}")

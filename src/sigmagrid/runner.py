@@ -23,7 +23,7 @@ import cantera as ct
 import numpy as np
 import xarray as xr
 
-from . import __version__, config as config_mod, diagnostics, grid as grid_mod, mechanism, safety, store
+from . import __version__, config as config_mod, diagnostics, fileformat, grid as grid_mod, mechanism, safety, store
 from . import sea as sea_mod
 from .errors import InputError, StorageError
 from .reactors import Relaxation, RelaxSettings, relax
@@ -116,8 +116,10 @@ def run_case(case: grid_mod.Case, gas: ct.Solution, info: mechanism.MechanismInf
     if settings.sea is not None:
         # never raises for a failing SEA path: its status and reason are stored per metric
         sea_ds = sea_mod.compare(gas, info, relaxation, idx, settings.sea)
-        ds = ds.merge(sea_ds, compat="override")
+        # the comparison labels reactions by position; the case file by source index
+        ds = ds.merge(sea_ds.drop_vars("reaction"), compat="override")
         ds.attrs.update(sea_ds.attrs)  # merge keeps the first attributes only: the SEA settings and skip reason
+        ds = fileformat.finish(ds, "case", f"case {case.case_id} relaxed and compared with steepest entropy ascent")
     return ds
 
 
@@ -219,7 +221,10 @@ def _reusable(target: Path, settings_sha256: str) -> bool:
         return False
     try:
         with xr.open_dataset(target) as ds:
-            return ds.attrs.get("settings_sha256") == settings_sha256
+            # a file of another format version is recomputed, never kept
+            return (ds.attrs.get("settings_sha256") == settings_sha256
+                    and str(ds.attrs.get(fileformat.VERSION_ATTRIBUTE, "")).split(".")[0]
+                    == fileformat.FORMAT_VERSION.split(".")[0])
     except Exception:  # noqa: BLE001 - damaged: compute it again
         return False
 

@@ -16,28 +16,13 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from . import missing
+from . import fileformat, missing
 from .atomic import atomic_path, remove_stale_temporaries, write_text_atomic  # noqa: F401 (store.* API)
 
 CONVENTIONS = "CF-1.10"
 
 #: Per-case scalar variables copied into the summary and cases.csv: name -> (units, long name).
-SCALARS = {
-    "balance_residual": ("1", "relative entropy balance residual |Delta Phi - sum_j I_j| / Delta Phi"),
-    "ignition_delay": ("s", "ignition delay (time of largest dT/dt)"),
-    "equilibrium_temperature": ("K", "temperature at equilibrium with the reactor's pair held fixed"),
-    "equilibrium_pressure": ("Pa", "pressure at equilibrium with the reactor's pair held fixed"),
-    "final_temperature": ("K", "temperature at the end of the integration"),
-    "entropy_change": ("J K-1", "change of the reactor's potential Phi over the case (S, or S - H/T isothermal)"),
-    "entropy_produced_total": ("J K-1", "sum over reactions of the entropy produced"),
-    "energy_drift": ("1", "relative change of the held energy (U isolated, H constant-pressure)"),
-    "negative_entropy_share": ("1", "share of the entropy production that is negative (irreversible reactions)"),
-    "worst_reversible_ratio": ("1", "lowest sigma_j / peak sigma of any reversible, non-duplicate reaction"),
-    "worst_duplicate_group_ratio": ("1", "lowest summed sigma / peak sigma of any reversible duplicate group"),
-    "closed_vessel_pressure_ratio": ("1", "adiabatic closed-vessel pressure ratio P_eq / P_0 (isolated cases)"),
-    "solver_steps": ("1", "number of solver steps"),
-    "wall_time": ("s", "wall-clock time of the relaxation"),
-}
+SCALARS = fileformat.SCALARS
 
 
 #: Significant decimal digits kept in the stored path samples (lossy quantization, then lossless
@@ -75,6 +60,30 @@ def disequilibrium(ds: xr.Dataset) -> xr.DataArray:
 
     x = ds["affinity"].astype(float) / (GAS_CONSTANT * ds["temperature"])
     return x.assign_attrs(units="1", long_name="degree of disequilibrium x_j = A_j / (R T)")
+
+
+def open_checked(path: str | Path, kind: str = "") -> xr.Dataset:
+    """Open a sigmagrid netCDF file fully into memory, refusing another major format version
+    (:func:`sigmagrid.fileformat.check` raises :class:`~sigmagrid.fileformat.FormatError`)."""
+    with xr.open_dataset(path) as ds:
+        fileformat.check(ds.attrs, path, kind)
+        return ds.load()
+
+
+def reaction_coords(index, equation, duplicate_group, reversible) -> dict:
+    """The ``reaction`` dimension coordinate (source-mechanism index) and its auxiliary
+    coordinates ``equation``, ``duplicate_group`` (index of the group's first member) and
+    ``reversible``, as (dims, values) pairs; attributes come from :mod:`sigmagrid.fileformat`."""
+    return {"reaction": ("reaction", np.asarray(index, dtype=np.int64)),
+            "equation": ("reaction", np.asarray(equation, dtype=str)),
+            "duplicate_group": ("reaction", np.asarray(duplicate_group, dtype=np.int64)),
+            "reversible": ("reaction", np.asarray(reversible).astype(np.int8))}
+
+
+def reaction_coords_of(ds: xr.Dataset) -> dict:
+    """:func:`reaction_coords` of a file that has them (a case file, summary, ranking)."""
+    return reaction_coords(ds["reaction"].values, ds["equation"].values, ds["duplicate_group"].values,
+                           ds["reversible"].values)
 
 
 def choose_samples(time: np.ndarray, progress: np.ndarray, temperature: np.ndarray, budget: int,
@@ -234,15 +243,21 @@ def open_input(path: str | Path, field: str, missing_hint: str = "") -> xr.Datas
         raise InputError(field, f"'{path}' does not exist{missing_hint}")
     try:
         with xr.open_dataset(path) as opened:
-            return opened.load()
+            attrs = dict(opened.attrs)
+            loaded = opened.load()
     except Exception as err:  # noqa: BLE001 - any reader error means "not a netCDF file we can read"
         raise InputError(field, f"'{path}' is not a readable netCDF file ({type(err).__name__})") from None
+    try:
+        fileformat.check(attrs, path)
+    except fileformat.FormatError as err:
+        raise InputError(field, str(err)) from None
+    return loaded
 
 
 def open_case(path: str | Path) -> xr.Dataset:
-    """Open a case file fully into memory (the file is closed afterwards)."""
-    with xr.open_dataset(path) as ds:
-        return ds.load()
+    """Open a case file fully into memory (the file is closed afterwards); a file of another
+    major format version raises :class:`~sigmagrid.fileformat.FormatError`."""
+    return open_checked(path, "case")
 
 
 #: Per-case figures of the SEA comparison carried into the summary (dims after ``case``).
@@ -295,6 +310,7 @@ def _summary_part(path: Path) -> dict:
 
     with netCDF4.Dataset(path) as nc:
         nc.set_auto_mask(False)
+        fileformat.check({k: nc.getncattr(k) for k in nc.ncattrs()}, path, "case")
         data, coords = {}, {}
         for name, var in nc.variables.items():
             if "time" in var.dimensions:
@@ -359,7 +375,7 @@ def summarize(paths: list[str | Path], workers: int | None = None) -> tuple[xr.D
     Returns the summary Dataset (dimensions case x reaction) and a DataFrame, one row per case.
     Cases whose file does not open are listed with status ``failed`` and the reason.
     """
-    rows, produced, reactions, attrs, sea_parts = [], [], None, {}, []
+    rows, produced, reactions, attrs, sea_parts, reaction_aux = [], [], None, {}, [], {}
     ordered = sorted(map(Path, paths))
     for path, part in zip(ordered, _summary_parts(ordered, workers)):
         if isinstance(part, str):
@@ -370,6 +386,7 @@ def summarize(paths: list[str | Path], workers: int | None = None) -> tuple[xr.D
         meta, values = part["attrs"], part["vars"]
         if reactions is None:
             reactions = list(part["coords"]["reaction"])
+            reaction_aux = {k: values[k][1] for k in ("equation", "duplicate_group", "reversible")}
             attrs = {k: meta[k] for k in ("mechanism", "mechanism_sha256", "config_sha256",
                                            "sigmagrid_version", "cantera_version", "study") if k in meta}
         row = {"case_id": meta["case_id"], "label": meta["label"], "reactor": meta["reactor"],
@@ -409,7 +426,7 @@ def summarize(paths: list[str | Path], workers: int | None = None) -> tuple[xr.D
                           **{k: "" for k in PROVENANCE_COLUMNS}})
     coords = {
         "case": ("case", table["case_id"].to_numpy(str), {"long_name": "case id"}),
-        "reaction": ("reaction", np.array(reactions, dtype=str), {"long_name": "reaction equation"}),
+        **reaction_coords(reactions, **reaction_aux),
         "label": ("case", table["label"].to_numpy(str), {"long_name": "case label"}),
         "reactor": ("case", table["reactor"].to_numpy(str), {"long_name": "reactor type"}),
         "composition_name": ("case", table["composition_name"].to_numpy(str), {"long_name": "mixture name"}),
@@ -423,8 +440,8 @@ def summarize(paths: list[str | Path], workers: int | None = None) -> tuple[xr.D
     data = {
         "entropy_produced": (("case", "reaction"), matrix,
                              _attrs("J K-1", "entropy produced by each reaction over the case")),
-        "entropy_share": (("case", "reaction"), share,
-                          _attrs("1", "integrated share of each reaction in the entropy produced (sums to 1)")),
+        "integrated_share": (("case", "reaction"), share,
+                             _attrs("1", "integrated share of each reaction in the entropy produced (sums to 1)")),
         "reason": ("case", table["reason"].to_numpy(str), {"long_name": "why a case did not relax"}),
         "missing": ("case", table["missing"].to_numpy(str),
                     {"long_name": "which values of the case are missing (NaN) and why"}),
@@ -442,8 +459,8 @@ def summarize(paths: list[str | Path], workers: int | None = None) -> tuple[xr.D
         coords["progress_level"] = ("progress_level", np.array([0.5, 0.9, 0.99]), _attrs("1", "progress level"))
     summary = xr.Dataset(data, coords=coords, attrs={
         "Conventions": CONVENTIONS, "title": f"sigmagrid grid summary {attrs.get('study', '')}".strip(),
-        "source": "sigmagrid", "history": f"combined from {len(paths)} case files", **attrs})
-    return summary, table
+        "source": "sigmagrid", **attrs})
+    return fileformat.finish(summary, "summary", f"combined from {len(paths)} case files"), table
 
 
 def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equations, species,
@@ -484,14 +501,15 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
         "wall_time": r.wall_seconds,
     }
     data = {
-        "temperature": ("time", r.temperature[idx], _attrs("K", "temperature", standard_name="air_temperature")),
-        "pressure": ("time", r.pressure[idx], _attrs("Pa", "pressure", standard_name="air_pressure")),
+        # no CF standard name: air_temperature and air_pressure mean the atmosphere
+        "temperature": ("time", r.temperature[idx], _attrs("K", "temperature")),
+        "pressure": ("time", r.pressure[idx], _attrs("Pa", "pressure")),
         "volume": ("time", r.volume[idx], _attrs("m3", "reactor volume")),
         "density": ("time", r.density[idx], _attrs("kg m-3", "density")),
         "entropy": ("time", r.entropy[idx], _attrs("J K-1", "total entropy of the reactor contents")),
         "potential": ("time", r.potential[idx],
                       _attrs("J K-1", "potential that grows to its equilibrium maximum: S (adiabatic), S - H/T (isothermal)")),
-        # not "progress": that name is the shared progress grid of the SEA comparison
+        # not "progress": that name is the 0-1 grid of progress.nc (the SEA grid is "sea_progress")
         "path_progress": ("time", r.progress[idx], _attrs("1", "progress (Phi - Phi_0)/(Phi_eq - Phi_0)")),
         "mole_fraction": (("time", "species"), x.astype(f32), _attrs("1", "mole fraction")),
         "affinity": (("time", "reaction"), reaction_state.affinity.astype(f32),
@@ -509,11 +527,6 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
         "entropy_produced": ("reaction", r.entropy_produced,
                              _attrs("J K-1", "entropy produced by each reaction: integral of V sigma_j dt "
                                     "over the full-resolution path")),
-        "reversible": ("reaction", info.reversible.astype(np.int8),
-                       {"long_name": "reaction is reversible", "units": "1",
-                        "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "irreversible reversible"}),
-        "duplicate_group": ("reaction", info.duplicate_group.astype(np.int32),
-                            _attrs("1", "index of the first member of the reaction's duplicate group")),
         "negative_prefactor": ("reaction", info.negative_prefactor.astype(np.int8),
                                {"long_name": "Arrhenius pre-exponential factor is negative", "units": "1",
                                 "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "positive negative"}),
@@ -545,16 +558,15 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
         "time": ("time", r.time[idx], {"units": "s", "long_name": "time since the start of the relaxation",
                                        "standard_name": "time", "axis": "T"}),
         "species": ("species", np.array(species, dtype=str), {"long_name": "species name"}),
-        "reaction": ("reaction", np.array(equations, dtype=str), {"long_name": "reaction equation"}),
+        # duplicate_group holds positions in the mechanism; the files hold source indices
+        **reaction_coords(info.reaction_index, equations, info.reaction_index[info.duplicate_group],
+                          info.reversible),
         "progress_level": ("progress_level", progress_levels, _attrs("1", "progress level")),
     }
     attrs = {
         "Conventions": CONVENTIONS,
         "title": f"sigmagrid case {case.label}",
-        "institution": "sigmagrid users",
         "source": f"sigmagrid {provenance.get('sigmagrid_version', '')} with Cantera {provenance.get('cantera_version', '')}",
-        "history": f"created by sigmagrid on {provenance.get('created', '')}",
-        "references": "de Groot and Mazur (1962) Non-Equilibrium Thermodynamics; DESIGN of sigmagrid",
         "comment": "Model output. Not a basis for vessel design, venting or hazard classification.",
         "case_id": case.case_id, "label": case.label, "reactor": case.reactor,
         "composition_name": case.composition_name, "composition": case.composition,
@@ -566,4 +578,5 @@ def case_dataset(*, case, relaxation, reaction_state, sample_index, info, equati
         "missing_values": missing.as_text(why), "audit_notes": "; ".join(notes),
         **{k: v for k, v in provenance.items() if k != "created"},
     }
-    return xr.Dataset(data, coords=coords, attrs=attrs)
+    return fileformat.finish(xr.Dataset(data, coords=coords, attrs=attrs), "case",
+                             f"case {case.case_id} relaxed from its initial state")

@@ -60,7 +60,7 @@ def compare(gas: ct.Solution, info: MechanismInfo, relaxation, sample_index, set
     Returns
     -------
     xarray.Dataset on coordinates ``metric``, ``reaction``, ``species``, ``time`` (the stored
-    samples, s), ``progress`` (1), ``mode`` and ``progress_level``; every variable has ``units`` and
+    samples, s), ``sea_progress`` (1), ``mode`` and ``progress_level``; every variable has ``units`` and
     ``long_name``. Never raises for a numerical failure: ``sea_status``/``sea_reason`` say what
     happened per metric, and degenerate cases (start at equilibrium, a path too short) come back
     NaN-filled with the reason.
@@ -535,18 +535,18 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
                                      "over the largest at equal cost q.G.q"),
             "entropy_production_ratio": var(("metric",), ep, "1",
                                             "entropy produced on the observed path over the largest at equal cost"),
-            "sea_time": var(("metric", "progress"), sea_t, "s", "time of the steepest-entropy-ascent path",
+            "sea_time": var(("metric", "sea_progress"), sea_t, "s", "time of the steepest-entropy-ascent path",
                             comment="observed time of the SEA start sample plus the SEA clock"),
-            "sea_temperature": var(("metric", "progress"), sea_T, "K",
+            "sea_temperature": var(("metric", "sea_progress"), sea_T, "K",
                                    "temperature of the steepest-entropy-ascent path"),
-            "sea_mole_fraction": var(("metric", "progress", "species"), sea_x, "1",
+            "sea_mole_fraction": var(("metric", "sea_progress", "species"), sea_x, "1",
                                      "mole fractions of the steepest-entropy-ascent path"),
-            "observed_time": var(("progress",), obs_t, "s", "time at which the observed path reaches the progress"),
-            "observed_temperature": var(("progress",), obs_T, "K", "temperature of the observed path"),
-            "path_angle": var(("metric", "progress"), angle, "rad",
+            "observed_time": var(("sea_progress",), obs_t, "s", "time at which the observed path reaches the progress"),
+            "observed_temperature": var(("sea_progress",), obs_T, "K", "temperature of the observed path"),
+            "path_angle": var(("metric", "sea_progress"), angle, "rad",
                               "Fisher-Rao angle between observed and steepest-ascent mole fractions",
                               comment="2 arccos(sum_k sqrt(X_k Y_k)) at equal entropy progress; 0 to pi"),
-            "temperature_difference": var(("metric", "progress"), dT, "K",
+            "temperature_difference": var(("metric", "sea_progress"), dT, "K",
                                           "steepest-ascent minus observed temperature"),
             "largest_path_angle": var(("metric",), largest, "rad", "largest Fisher-Rao path angle"),
             "time_ratio": var(("metric", "progress_level"), ratio, "1",
@@ -589,10 +589,12 @@ def _assemble(gas, rel, sample_index, settings, res, reason) -> xr.Dataset:
         },
         coords={
             "metric": ("metric", np.array(metrics, dtype=str), {"long_name": "steepest-entropy-ascent metric"}),
-            "reaction": ("reaction", np.array(gas.reaction_equations(), dtype=str)),
+            # positions in this mechanism; the case file's writer maps them to source indices
+            "reaction": ("reaction", np.arange(nr)),
             "species": ("species", np.array(gas.species_names, dtype=str)),
             "time": ("time", times, {"units": "s", "long_name": "time of the stored samples"}),
-            "progress": ("progress", grid, {"units": "1", "long_name": "entropy progress lambda"}),
+            # not "progress": that is the 0-1 grid of progress.nc; this one starts at start_progress
+            "sea_progress": ("sea_progress", grid, {"units": "1", "long_name": "entropy progress lambda"}),
             "mode": ("mode", np.arange(settings.n_modes), {"units": "1", "long_name": "relaxation mode, slowest first"}),
             "progress_level": ("progress_level", levels, {"units": "1", "long_name": "progress level of the time ratios"}),
         },
