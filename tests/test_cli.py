@@ -134,7 +134,10 @@ def test_show_refuses_a_missing_file_and_a_summary_in_one_line(tmp_path):
     assert missing.returncode == 2 and "Traceback" not in missing.stderr
     assert missing.stderr.strip().splitlines() == [f"sigmagrid: error: file: '{tmp_path / 'none.nc'}' does not exist"]
     summary = tmp_path / "summary.nc"
-    xr.Dataset(attrs={"title": "not a case"}).to_netcdf(summary)
+    from sigmagrid import fileformat
+
+    # a current-format file that is not a case file (as a summary is)
+    xr.Dataset(attrs={fileformat.VERSION_ATTRIBUTE: fileformat.FORMAT_VERSION}).to_netcdf(summary)
     refused = run_cli("show", str(summary))
     assert refused.returncode == 2 and len(refused.stderr.strip().splitlines()) == 1
     assert "is not a case file" in refused.stderr

@@ -111,8 +111,8 @@ def test_two_runs_give_identical_files_with_full_provenance(tmp_path):
 
 
 def _computed(done) -> int:
-    """Cases the run computed (it prints one '[k/n] label: status ...' line for each)."""
-    return len(re.findall(r"^\[\d+/\d+\] ", done.stdout, flags=re.M))
+    """Cases the run computed (it prints one '[k/n] label: status ...' line for each, on stderr)."""
+    return len(re.findall(r"^\[\d+/\d+\] ", done.stderr, flags=re.M))
 
 
 def test_a_rerun_redoes_only_cases_whose_settings_changed(tmp_path):

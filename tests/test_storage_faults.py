@@ -55,7 +55,7 @@ def test_a_full_disk_stops_the_run_with_one_line_and_the_rerun_completes(tmp_pat
     if low_space:
         usage = namedtuple("usage", "total used free")
         monkeypatch.setattr(shutil, "disk_usage", lambda folder: usage(10 * 2**30, 10 * 2**30 - 4096, 4096))
-    code = cli.main(["run", config, "--results", str(results)])
+    code = cli.main(["-q", "run", config, "--results", str(results)])  # -q: errors only on stderr
     err = capsys.readouterr().err
     assert code == cli.EXIT_STORAGE != 0
     lines = err.strip().splitlines()
@@ -90,7 +90,7 @@ def test_a_vanished_results_folder_is_named(tmp_path, monkeypatch, capsys):
         raise FileNotFoundError(errno.ENOENT, "No such file or directory", str(path))
 
     monkeypatch.setattr(store, "_to_netcdf4", writer)
-    code = cli.main(["run", config, "--results", str(results)])
+    code = cli.main(["-q", "run", config, "--results", str(results)])  # -q: errors only on stderr
     err = capsys.readouterr().err
     assert code == cli.EXIT_STORAGE and len(err.strip().splitlines()) == 1
     assert "the folder no longer exists" in err and str(results / "cases") in err

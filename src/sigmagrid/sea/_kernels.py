@@ -228,6 +228,18 @@ def evaluate(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T
 
 
 @numba.njit(cache=True)
+def _log_rates(n, active, V, q, nu_ptr, nu_species, nu_coef, factor, out):
+    """factor V nu q / N of the active species into ``out``: dz/dt (factor 1) or dz/ds (tau)."""
+    flux = np.zeros(n.size)
+    for j in range(nu_ptr.size - 1):
+        for p in range(nu_ptr[j], nu_ptr[j + 1]):
+            flux[nu_species[p]] += nu_coef[p] * q[j]
+    for i in range(active.size):
+        k = active[i]
+        out[i] = factor * V * flux[k] / n[k]
+
+
+@numba.njit(cache=True)
 def rhs(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
         nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref, out):
     """dz/dt = V nu q / N (1/s) into ``out``; returns T (K), or -1 where no temperature meets the
@@ -237,13 +249,7 @@ def rhs(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_gues
         nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref)
     if T < 0:
         return -1.0
-    flux = np.zeros(n.size)
-    for j in range(nr):
-        for p in range(nu_ptr[j], nu_ptr[j + 1]):
-            flux[nu_species[p]] += nu_coef[p] * q[j]
-    for i in range(active.size):
-        k = active[i]
-        out[i] = V * flux[k] / n[k]
+    _log_rates(n, active, V, q, nu_ptr, nu_species, nu_coef, 1.0, out)
     return T
 
 
@@ -410,13 +416,7 @@ def clock_rhs(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, 
     if not (deficit > 0.0 and rate > 0.0):
         return -1.0, 0.0
     tau = deficit / rate
-    flux = np.zeros(n.size)
-    for j in range(nr):
-        for p in range(nu_ptr[j], nu_ptr[j + 1]):
-            flux[nu_species[p]] += nu_coef[p] * q[j]
-    for i in range(active.size):
-        k = active[i]
-        out[i] = tau * V * flux[k] / n[k]
+    _log_rates(n, active, V, q, nu_ptr, nu_species, nu_coef, tau, out)
     return T, tau
 
 

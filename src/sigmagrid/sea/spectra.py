@@ -24,6 +24,20 @@ def _hessian_z(system: _System, n, T, V):
     return np.eye(dT.size) - dlnv[None, :] - np.outer(ubar / T, dT)
 
 
+def _symmetric_parts(system: _System, n_eq, mobility: np.ndarray):
+    """(G^1/2, B, m): the metric root G^1/2 with G = N^1/2 H N^1/2 (symmetrized), the scaled
+    stoichiometry B = V^1/2 N^-1/2 nu and the usable mobilities m (non-finite or negative: 0),
+    so that the linearized rates are the eigenvalues of G^1/2 B diag(m) B^T G^1/2."""
+    n, T, V = system.state(system.z_of(n_eq))
+    Hz = _hessian_z(system, n, T, V)  # H diag(N)
+    root = np.sqrt(n[system.active])
+    G = Hz * root[:, None] / root[None, :]
+    w, Q = np.linalg.eigh(0.5 * (G + G.T))
+    Gh = (Q * np.sqrt(np.clip(w, 0.0, None))) @ Q.T
+    m = np.where(np.isfinite(mobility) & (mobility > 0), mobility, 0.0)
+    return Gh, system.nu_a / root[:, None] * np.sqrt(V), m
+
+
 def sea_spectrum(system: _System, n_eq, mobility: np.ndarray) -> np.ndarray:
     """Nonzero relaxation rates (s-1, ascending) of q = M x linearised at equilibrium.
 
@@ -33,17 +47,8 @@ def sea_spectrum(system: _System, n_eq, mobility: np.ndarray) -> np.ndarray:
     as those of the symmetric G^1/2 P G^1/2 in species space, with G = N^1/2 H N^1/2 (of order one)
     and P = N^-1/2 L N^-1/2; the number of nonzero modes is the rank of nu on the support of M.
     """
-    n, T, V = system.state(system.z_of(n_eq))
-    Hz = _hessian_z(system, n, T, V)  # H diag(N)
-    root = np.sqrt(n[system.active])
-    G = Hz * root[:, None] / root[None, :]
-    G = 0.5 * (G + G.T)
-    w, Q = np.linalg.eigh(G)
-    Gh = (Q * np.sqrt(np.clip(w, 0.0, None))) @ Q.T
-    m = np.where(np.isfinite(mobility) & (mobility > 0), mobility, 0.0)
-    B = system.nu_a / root[:, None]
-    P = V * ((B * m[None, :]) @ B.T)
-    S = Gh @ P @ Gh
+    Gh, B, m = _symmetric_parts(system, n_eq, mobility)
+    S = Gh @ ((B * m[None, :]) @ B.T) @ Gh
     gram = np.linalg.eigvalsh((system.nu_a * (m > 0)[None, :]) @ system.nu_a.T)
     rank = int((gram > 1e-9 * max(gram.max(), 1.0)).sum())
     rates = np.linalg.eigvalsh(0.5 * (S + S.T))
@@ -57,15 +62,7 @@ def mode_carriers(system: _System, n_eq, mobility: np.ndarray, n_modes: int) -> 
     With S = G^1/2 P G^1/2 and P = sum_j m_j b_j b_j^T, a unit eigenvector u of rate k splits as
     k = sum_j m_j (b_j . G^1/2 u)^2: reaction j's share of the mode (Rayleigh quotient by terms).
     """
-    n, T, V = system.state(system.z_of(n_eq))
-    Hz = _hessian_z(system, n, T, V)
-    root = np.sqrt(n[system.active])
-    G = Hz * root[:, None] / root[None, :]
-    G = 0.5 * (G + G.T)
-    w, Q = np.linalg.eigh(G)
-    Gh = (Q * np.sqrt(np.clip(w, 0.0, None))) @ Q.T
-    m = np.where(np.isfinite(mobility) & (mobility > 0), mobility, 0.0)
-    B = system.nu_a / root[:, None] * np.sqrt(V)
+    Gh, B, m = _symmetric_parts(system, n_eq, mobility)
     S = Gh @ (B * m[None, :]) @ B.T @ Gh
     rates, U = np.linalg.eigh(0.5 * (S + S.T))
     keep = np.flatnonzero(rates > 1e-12 * max(rates.max(), 1e-300))[:n_modes]
