@@ -31,7 +31,7 @@ DEFAULTS: dict[str, Any] = {
     "sea": {"enabled": True},
     "progress_grid": {"points": 101},
     "reduction": {"criteria": ["local", "drg", "drgep", "drgep-sieve"], "thresholds": [0.0, 0.001, 0.01, 0.1],
-                  "species_thresholds": [0.01, 0.05, 0.1, 0.2, 0.4], "thresholds_by_criterion": {},
+                  "species_thresholds": [0.1, 0.6, 0.9], "thresholds_by_criterion": {},
                   "targets": [], "sieve_share": 1e-3, "negligible": 1e-3,
                   "negative_entropy": "keep", "keep_species": [], "validate": True, "validation_cases": {},
                   "max_ignition_delay_error": 0.05, "max_equilibrium_temperature_error": 2.0,

@@ -5,7 +5,10 @@ The entropy criteria (``local``, ``integrated-*``) rank reactions and live in :m
 the graph criteria rank species with :mod:`sigmagrid.graph_criteria` (Lu and Law, Proc. Combust.
 Inst. 30 (2005) 1333; Pepiot-Desjardins and Pitsch, Combust. Flame 154 (2008) 67) from the same
 stored states the ranking reads (``net_rate``, mol m-3 s-1, of every case file). A species' importance
-is its largest over the states of every usable case.
+is its largest over the states of every usable case where the total entropy production is not
+negligible (at least ``reduction.negligible`` x its peak in the case, the cut-off of the local
+share): near equilibrium every net rate vanishes, the coefficients become ratios of vanishing
+numbers, and the slowest remaining chemistry (thermal NO in methane-air) would look essential.
 
 A species cut keeps the species whose importance exceeds the threshold plus the species every
 cut keeps (:func:`always_kept`) and removes each reaction that involves a removed species as
@@ -31,6 +34,7 @@ import numpy as np
 import xarray as xr
 
 from . import fileformat, graph_criteria
+from .errors import InputError
 from .config import SPECIES_CRITERIA  # noqa: F401 - re-exported: the kinds of criteria live together
 
 GRAPH_METHODS = graph_criteria.METHODS  # ("drg", "drgep")
@@ -77,12 +81,16 @@ def automatic_targets(species: list[str], feed: set[str], inert: set[str], final
 
 
 def importance_over_cases(gas: ct.Solution, case_files: list[Path], usable: list[bool], targets: list[str] | None,
-                          feed: set[str], inert: set[str],
+                          feed: set[str], inert: set[str], negligible: float = 1e-3,
                           report: Callable[[str], None] | None = None) -> tuple[np.ndarray, list[str]]:
     """(method, species) importance (1) under DRG and DRGEP over every stored state of the usable
-    cases, and the targets used (``targets``, or :func:`automatic_targets` when None or empty)."""
+    cases (states with sigma >= ``negligible`` x its peak), and the targets used (``targets``, or :func:`automatic_targets` when None or empty)."""
     nu, delta = stoichiometry(gas)
     species = list(gas.species_names)
+    unknown = [t for t in targets or [] if t not in species]
+    if unknown:
+        raise InputError("reduction.targets", f"unknown species {', '.join(unknown)} for this mechanism; "
+                                              "allowed: species of the mechanism")
     rates, finals = [], []
     for path, ok in zip(case_files, usable):
         if not ok:
@@ -90,12 +98,15 @@ def importance_over_cases(gas: ct.Solution, case_files: list[Path], usable: list
         try:
             with xr.open_dataset(path) as whole:
                 fileformat.check(whole.attrs, path, "case")
-                ds = whole[["net_rate", "mole_fraction"]].load()
+                ds = whole[["net_rate", "mole_fraction", "entropy_production_total"]].load()
         except Exception:  # noqa: BLE001 - a damaged case is left out here as in the ranking
             continue
         if list(ds["species"].values.astype(str)) != species or ds.sizes["reaction"] != gas.n_reactions:
             continue
-        rates.append(ds["net_rate"].values.astype(float))
+        sigma = ds["entropy_production_total"].values.astype(float)
+        active = np.isfinite(sigma) & (sigma >= negligible * np.nanmax(sigma)) & (sigma > 0) \
+            if np.isfinite(sigma).any() else np.zeros(sigma.size, bool)
+        rates.append(ds["net_rate"].values.astype(float)[active])
         finals.append(ds["mole_fraction"].values[-1].astype(float))
     if not targets:
         targets = automatic_targets(species, feed, inert, np.array(finals) if finals else np.zeros((0, len(species))))

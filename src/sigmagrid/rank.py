@@ -271,7 +271,7 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
         gas = mechanism.load(mechanism.resolve(config["mechanism"]), phase=config.get("phase"))
         importance, targets = criteria.importance_over_cases(
             gas, [by_id.get(cid) for cid in case_ids], list(usable), reduction_settings(config)["targets"],
-            feed_species(config), inert_species(gas, config), report)
+            feed_species(config), inert_species(gas, config), negligible, report)
         data["species_importance"] = var(("graph_method", "species"), importance, "1",
                                          "largest importance of the species over the states of the usable cases")
         data["graph_target"] = var(("species",), np.isin(gas.species_names, targets).astype(np.int8), "1",
