@@ -360,7 +360,9 @@ def plot_cuts(source, total_reactions: int | None = None):
             if zero.any():  # (an empty unclipped line would stretch the layout to the figure's corner)
                 ax.plot(x[zero], np.full(zero.sum(), floor), marker=marker, ms=7, ls="none", mfc="white",
                         mec=colour, mew=1.5, clip_on=False, zorder=5)
-            if ax is axes[0] and len(part) <= 10:
+            # with many criteria their cuts coincide and labels would print over each other;
+            # the criteria figure compares them
+            if ax is axes[0] and len(part) <= 10 and len(criteria) <= 2:
                 _label_cuts(ax, part, np.where(zero, floor, np.where(above, v, np.nan)), colour, k, zero)
         ax.set_ylim(floor, top)
         if np.isfinite(tol) and tol > 0:
