@@ -72,7 +72,8 @@ def test_every_variable_dimension_and_attribute_is_described(default_run):
                 assert var.attrs.get("standard_name") in (None, "time"), (kind, name)  # nothing atmospheric
                 if var.dtype.kind in "iu" and name not in ds.dims and "flag_values" not in var.attrs:
                     # integers are counts or indices, never an undeclared code
-                    assert name in ("duplicate_group", "n_species", "n_reactions", "failed_cases", "negative_cases"), \
+                    assert name in ("duplicate_group", "n_species", "n_reactions", "failed_cases", "negative_cases",
+                                        "judged_at_end_cases"), \
                         (kind, name)
 
 

@@ -55,14 +55,15 @@ def cmd_resample(args) -> int:
 def cmd_rank(args) -> int:
     from . import rank
 
+    config = _config(args.config) if args.config else None
     negligible = args.negligible
     if negligible is None:
-        negligible = float(_config(args.config)["reduction"]["negligible"]) if args.config else 1e-3
+        negligible = float(config["reduction"]["negligible"]) if config else 1e-3
     if not 0 < negligible < 1:
         raise InputError("--negligible", f"must be between 0 and 1 (exclusive), got {negligible}")
     try:
         ranking = rank.write_ranking(_existing(args.summary, "--summary"), args.files, args.table, args.out,
-                                     negligible, report=_say)
+                                     negligible, report=_say, config=config)
     except ValueError as err:  # no usable case
         raise InputError("files", str(err)) from None
     flagged = int(ranking["negative_entropy"].sum())
@@ -95,7 +96,9 @@ def cmd_assess_cut(args) -> int:
     name = args.name or Path(args.mechanism).stem
     if not Path(args.mechanism).is_file():
         raise InputError("--mechanism", f"'{args.mechanism}' does not exist")
-    result = rank.assess_cut(config, args.mechanism, summary, args.cases_dir, name=name, report=_say)
+    full_cases = Path(args.full_cases_dir) if args.full_cases_dir else Path(args.summary).parent / "cases"
+    result = rank.assess_cut(config, args.mechanism, summary, args.cases_dir, name=name, report=_say,
+                             full_cases_dir=full_cases)
     store.write_atomic(result, args.out)
     failed = int(result["cut_failed"].sum())
     print(f"wrote {args.out}: cut {name}, {result.sizes['case']} cases, {failed} failed on the cut"
@@ -106,12 +109,14 @@ def cmd_assess_cut(args) -> int:
 def _print_reduction(table, smallest: str, config: dict) -> None:
     from . import query, rank
 
-    shown = table[["cut", "species [1]", "reactions [1]", "failed_cases [1]",
+    shown = table[["cut", "species [1]", "reactions [1]", "failed_cases [1]", "judged_at_end_cases [1]",
                    "ignition_delay_error_max [1]", "ignition_delay_error_median [1]",
                    "equilibrium_temperature_error_max [K]", "entropy_produced_error_max [1]",
-                   "within_tolerances"]]
+                   "largest_error_ratio [1]", "within_tolerances"]]
     print(query.aligned(shown))
     print(f"tolerances: {rank.tolerance_text(config)}")
+    for criterion, name in rank.smallest_by_criterion(table).items():
+        print(f"smallest {criterion} cut within tolerances: {name or 'none'}")
     print(f"smallest cut within tolerances: {smallest or 'none'}")
 
 
@@ -238,7 +243,8 @@ def add_commands(sub) -> None:
     p.add_argument("--summary", default="results/summary.nc")
     p.add_argument("--table", default="results/ranking.csv")
     p.add_argument("--out", default="results/ranking.nc")
-    p.add_argument("--config", help="config (for reduction.negligible)")
+    p.add_argument("--config", help="config (reduction.negligible; with it the species are ranked for the "
+                                    "graph criteria too)")
     p.add_argument("--negligible", type=float, default=None,
                    help="sigma below this fraction of a case's peak is left out of the local share (default 1e-3)")
     p.set_defaults(func=cmd_rank)
@@ -256,6 +262,9 @@ def add_commands(sub) -> None:
     p.add_argument("--cases-dir", required=True, help="folder for the case files of the reduced run")
     p.add_argument("--out", required=True, help="validation file (.nc)")
     p.add_argument("--name", default="", help="cut name (default: the mechanism file's stem)")
+    p.add_argument("--full-cases-dir", default=None,
+                   help="case files of the full-mechanism run, to judge cases that stop short of equilibrium "
+                        "on the cut at their end time (default: 'cases' beside --summary)")
     p.set_defaults(func=cmd_assess_cut)
 
     p = sub.add_parser("cut-report", help="size and cost of every cut: reduction.csv and reduction.nc")

@@ -30,7 +30,9 @@ DEFAULTS: dict[str, Any] = {
     "batch": {"cases_per_job": 8, "max_cases": 20_000},
     "sea": {"enabled": True},
     "progress_grid": {"points": 101},
-    "reduction": {"criteria": ["local"], "thresholds": [0.0, 0.001, 0.01, 0.1], "negligible": 1e-3,
+    "reduction": {"criteria": ["local", "drg", "drgep", "drgep-sieve"], "thresholds": [0.0, 0.001, 0.01, 0.1],
+                  "species_thresholds": [0.1, 0.6, 0.9], "thresholds_by_criterion": {},
+                  "targets": [], "sieve_share": 1e-3, "negligible": 1e-3,
                   "negative_entropy": "keep", "keep_species": [], "validate": True, "validation_cases": {},
                   "max_ignition_delay_error": 0.05, "max_equilibrium_temperature_error": 2.0,
                   "max_entropy_produced_error": 0.02},
@@ -278,4 +280,18 @@ def cuts(config: dict) -> list[tuple[str, str, float]]:
     parsed, before any job runs: importing the ranking (pandas, xarray) cost 0.4 s of that parse.
     """
     red = config["reduction"]
-    return [(cut_name(c, float(t)), c, float(t)) for c in red["criteria"] for t in red["thresholds"]]
+    return [(cut_name(c, float(t)), c, float(t)) for c in red["criteria"] for t in thresholds_of(red, c)]
+
+
+#: Criteria that rank species (thresholds from ``reduction.species_thresholds``); the others rank reactions.
+SPECIES_CRITERIA = ("drg", "drgep", "drgep-sieve")
+
+
+def thresholds_of(reduction: dict, criterion: str) -> list[float]:
+    """Thresholds (1) of one criterion: ``thresholds_by_criterion`` first, then the species or
+    reaction thresholds by the kind of criterion."""
+    own = (reduction.get("thresholds_by_criterion") or {}).get(criterion)
+    if own:
+        return [float(t) for t in own]
+    key = "species_thresholds" if criterion in SPECIES_CRITERIA else "thresholds"
+    return [float(t) for t in reduction.get(key, DEFAULTS["reduction"][key])]

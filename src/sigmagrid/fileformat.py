@@ -364,6 +364,17 @@ _RANKING_VARS = {
     "most_negative_share": Var(("reaction",), "1", "smallest integrated share over the cases", "min_c f_jc"),
     "flag_reason": Var(("reaction",), None, "why the reaction is flagged",
                        "irreversible, duplicate member or reversible (round-off?); empty when not flagged"),
+    "species": Var(("species",), None, "species name", only="ranked with a config"),
+    "graph_method": Var(("graph_method",), None, "graph criterion of the species importance", "drg, drgep",
+                        only="ranked with a config"),
+    "species_importance": Var(("graph_method", "species"), "1", "largest importance of the species over the "
+                              "states of the usable cases",
+                              "DRG: max over states of the widest path from a target, min of r_AB = sum_i "
+                              "|nu_Ai q_i| delta_Bi / sum_i |nu_Ai q_i| on the path; DRGEP: max over states of the "
+                              "largest product of r_AB = |sum_i nu_Ai q_i delta_Bi| / max(P_A, C_A) over paths; "
+                              "targets 1", only="ranked with a config"),
+    "graph_target": Var(("species",), "1", "target species of the graph criteria", flags=("no", "yes"),
+                        only="ranked with a config"),
 }
 _RANKING_ATTRS = {
     **COMMON_ATTRS, **_GRID_ATTRS,
@@ -373,9 +384,12 @@ _RANKING_ATTRS = {
     "n_cases": "cases in the summary",
     "n_cases_used": "cases used in the ranking",
     "cases_left_out": "ids of the cases left out",
+    "graph_targets": "target species of the graph criteria, comma-separated (reduction.targets, or the feed's "
+                     "non-inert species and the products reaching a mole fraction of 1e-2 at the end of some case)",
 }
 _RANKING_DIMS = {"case": _SUMMARY_DIMS["case"], "reaction": _CASE_DIMS["reaction"],
-                 "criterion": "the ranking criteria"}
+                 "criterion": "the entropy criteria", "species": _CASE_DIMS["species"] + " (ranked with a config)",
+                 "graph_method": "the graph criteria drg, drgep (ranked with a config)"}
 
 # -------------------------------------------------------------------------------- validation
 
@@ -400,6 +414,12 @@ _VALIDATION_VARS = {
     "cut_failed": Var(("case",), "1", "case fails on the cut (fails, or no longer relaxes)", flags=("no", "yes")),
     "cut_reason": Var(("case",), None, "why the case did not relax on the cut"),
     "cut_case_id": Var(("case",), None, "id of the case in the reduced run"),
+    "cut_judged_at_end": Var(("case",), "1", "case relaxed on the full mechanism stops short of strict equilibrium "
+                             "on the cut within stop.max_time: judged at its end time, not failed",
+                             "temperature and entropy errors then |T_cut(t_end) - T(t_end)| and "
+                             "|dPhi_cut(t_end) - dPhi(t_end)| / |dPhi(t_end)| against the full path",
+                             flags=("no", "yes")),
+    "cut_end_time": Var(("case",), "s", "end time of a case judged at its end time (NaN otherwise)"),
 }
 _VALIDATION_ATTRS = {
     **COMMON_ATTRS,
@@ -421,6 +441,12 @@ _REDUCTION_VARS = {
     "n_species": Var(("cut",), "1", "species in the cut"),
     "n_reactions": Var(("cut",), "1", "reactions in the cut"),
     "failed_cases": Var(("cut",), "1", "cases that fail on the cut"),
+    "judged_at_end_cases": Var(("cut",), "1", "cases that stop short of strict equilibrium on the cut, judged at "
+                               "their end time (not failures)"),
+    "largest_error_ratio": Var(("cut",), "1", "largest error over its tolerance, the worst of the three errors",
+                               "max_k (largest error_k / tolerance_k); <= 1 within tolerances"),
+    "smallest_of_criterion": Var(("cut",), "1", "the smallest cut of its criterion within tolerances",
+                                 flags=("no", "yes")),
     "within_tolerances": Var(("cut",), "1", "validated, no failed case, largest errors within tolerances",
                              flags=("no", "yes")),
     **{f"{k}_max": Var(("cut",), v.units, f"largest {v.long_name}", v.formula) for k, v in _VALIDATION_ERRORS.items()},
@@ -436,11 +462,14 @@ _REDUCTION_VARS = {
 _REDUCTION_ATTRS = {
     **COMMON_ATTRS,
     "smallest_within_tolerances": "name of the smallest cut within tolerances (empty: none)",
+    "smallest_by_criterion": "per criterion the smallest cut within tolerances, 'criterion: cut' separated by "
+                             "'; ' (none: no cut of it within tolerances)",
     "tolerance_ignition_delay_error": "reduction.max_ignition_delay_error, 1",
     "tolerance_equilibrium_temperature_error": "reduction.max_equilibrium_temperature_error, K",
     "tolerance_entropy_produced_error": "reduction.max_entropy_produced_error, 1",
 }
-_REDUCTION_DIMS = {"cut": "the cuts of reduction.criteria x reduction.thresholds",
+_REDUCTION_DIMS = {"cut": "the cuts of reduction.criteria, each at its thresholds (reduction.thresholds, "
+                         "species_thresholds or thresholds_by_criterion)",
                    "case": "the validated cases (with reduction.validate)"}
 
 VARIABLES = {"case": _CASE_VARS, "summary": _SUMMARY_VARS, "progress": _PROGRESS_VARS, "ranking": _RANKING_VARS,
@@ -463,8 +492,12 @@ REFERENCES = {
     "summary": "S. R. de Groot and P. Mazur, Non-Equilibrium Thermodynamics, North-Holland (1962)",
     "progress": "S. R. de Groot and P. Mazur, Non-Equilibrium Thermodynamics, North-Holland (1962)",
     "ranking": "M. Kooshkbaghi, C. E. Frouzakis, K. Boulouchos and I. V. Karlin, Entropy production analysis "
-               "for mechanism reduction, Combust. Flame 161, 1507 (2014)",
-    "reduction": "M. Kooshkbaghi et al., Combust. Flame 161, 1507 (2014)",
+               "for mechanism reduction, Combust. Flame 161, 1507 (2014); T. Lu and C. K. Law, A directed relation "
+               "graph method for mechanism reduction, Proc. Combust. Inst. 30, 1333 (2005); P. Pepiot-Desjardins "
+               "and H. Pitsch, An efficient error-propagation-based reduction method for large chemical kinetic "
+               "mechanisms, Combust. Flame 154, 67 (2008)",
+    "reduction": "M. Kooshkbaghi et al., Combust. Flame 161, 1507 (2014); T. Lu and C. K. Law, Proc. Combust. "
+                 "Inst. 30, 1333 (2005); P. Pepiot-Desjardins and H. Pitsch, Combust. Flame 154, 67 (2008)",
     "validation": "M. Kooshkbaghi et al., Combust. Flame 161, 1507 (2014)",
 }
 

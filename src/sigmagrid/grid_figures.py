@@ -290,10 +290,15 @@ def _cuts_frame(source) -> pd.DataFrame:
                               "threshold": source["threshold"].values.astype(float),
                               "reactions": source["n_reactions"].values, "species": source["n_species"].values,
                               "failed": source["failed_cases"].values if "failed_cases" in source else 0,
+                              "ratio": (source["largest_error_ratio"].values if "largest_error_ratio" in source
+                                        else np.nan),
+                              "best": (source["smallest_of_criterion"].values.astype(bool)
+                                       if "smallest_of_criterion" in source else False),
                               **{f"{k}_max": source[f"{k}_max"].values for k, _, _ in _ERROR_PANELS}})
         tolerances = {k: source.attrs.get(f"tolerance_{k}", np.nan) for k, _, _ in _ERROR_PANELS}
     else:
-        frame = source.rename(columns={"failed_cases": "failed"}).copy()
+        frame = source.rename(columns={"failed_cases": "failed", "largest_error_ratio": "ratio",
+                                       "smallest_of_criterion": "best"}).copy()
         missing = [c for c in ["criterion", "threshold", "reactions", "species"] if c not in frame]
         if missing:
             raise InputError("--reduction", f"is not a reduction table (reduction.csv): it lacks {', '.join(missing)}")
@@ -355,7 +360,9 @@ def plot_cuts(source, total_reactions: int | None = None):
             if zero.any():  # (an empty unclipped line would stretch the layout to the figure's corner)
                 ax.plot(x[zero], np.full(zero.sum(), floor), marker=marker, ms=7, ls="none", mfc="white",
                         mec=colour, mew=1.5, clip_on=False, zorder=5)
-            if ax is axes[0] and len(part) <= 10:
+            # with many criteria their cuts coincide and labels would print over each other;
+            # the criteria figure compares them
+            if ax is axes[0] and len(part) <= 10 and len(criteria) <= 2:
                 _label_cuts(ax, part, np.where(zero, floor, np.where(above, v, np.nan)), colour, k, zero)
         ax.set_ylim(floor, top)
         if np.isfinite(tol) and tol > 0:
@@ -376,6 +383,61 @@ def plot_cuts(source, total_reactions: int | None = None):
     note = "largest error over the validated cases; labels: threshold, species kept, failed cases"
     if total_reactions:
         note += f"; grey line: full mechanism, {total_reactions} reactions"
+    fig.suptitle(note, fontsize=ps.FONT_SIZE - 1)
+    return fig
+
+
+def plot_criteria(source, total_species: int | None = None, total_reactions: int | None = None):
+    """Every criterion on the same axes: species kept (left) and reactions kept (right) against the
+    largest error over its tolerance (1, the worst of the three errors); a ring marks each
+    criterion's smallest cut within tolerances."""
+    frame = _cuts_frame(source)
+    if "ratio" not in frame:
+        raise Skipped("the reduction file has no largest_error_ratio (written before the criteria comparison)")
+    frame = frame[(frame["reactions"].astype(float) >= 0)]
+    ratio = frame["ratio"].to_numpy(float)
+    if not np.isfinite(ratio).any():
+        raise Skipped("the cuts were not validated (no errors to show)")
+    positive = ratio[np.isfinite(ratio) & (ratio > 0)]
+    floor = min([*positive, 1.0]) / 30
+    top = max([*positive, 1.0]) * 3
+    infinite = np.isinf(ratio)
+    fig = ps.new_figure(*CUTS_SIZE)
+    axes = fig.subplots(1, 2, squeeze=False)[0]
+    markers = ["o", "s", "^", "D", "v", "P"]
+    criteria = list(dict.fromkeys(frame["criterion"]))
+    for ax, size, total, label in ((axes[0], "species", total_species, "species kept"),
+                                   (axes[1], "reactions", total_reactions, "reactions kept")):
+        for k, criterion in enumerate(criteria):
+            part = frame[frame["criterion"] == criterion].sort_values([size, "threshold"])
+            x = part[size].to_numpy(float)
+            # exact zeros on the bottom edge, no ignition where the full mechanism ignites on the top
+            y = np.clip(part["ratio"].to_numpy(float), floor, top)
+            colour = ps.LINE_SERIES[k % len(ps.LINE_SERIES)]
+            ax.plot(x, y, marker=markers[k % len(markers)], ms=6, lw=1.2, color=colour,
+                    ls=ps.LINESTYLES[k % len(ps.LINESTYLES)], label=criterion, clip_on=False)
+            best = part["best"].to_numpy(bool) if "best" in part else np.zeros(len(part), bool)
+            if best.any():
+                ax.plot(x[best], y[best], marker="o", ms=15, ls="none", mfc="none", mec=colour, mew=1.5)
+        ax.axhline(1.0, color="0.3", lw=1.0, ls=":")
+        ax.text(0.01, 1.0, " tolerance", transform=ax.get_yaxis_transform(), va="bottom",
+                fontsize=ps.FONT_SIZE - 2, color="0.3").set_in_layout(False)
+        if total:
+            ax.axvline(total, color="0.6", lw=0.8)
+        ax.set_yscale("log")
+        ax.set_ylim(floor, top)
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+        ax.set_xlabel(ps.axis_label(label, "1"))
+        ax.set_ylabel(ps.axis_label("largest error / tolerance", "1"))
+        ax.grid(True, color="0.9", lw=0.6)
+    handles, texts = axes[0].get_legend_handles_labels()
+    handles.append(Line2D([], [], marker="o", ms=12, ls="none", mfc="none", mec="0.3", mew=1.5))
+    texts.append("smallest within tolerances")
+    fig.legend(handles, texts, loc="outside lower center", ncols=min(len(texts), 7), frameon=False,
+               fontsize=ps.FONT_SIZE - 1)
+    note = "worst of the three errors over its tolerance, over the validated cases"
+    if infinite.any():
+        note += "; on the top edge: ignition lost or gained"
     fig.suptitle(note, fontsize=ps.FONT_SIZE - 1)
     return fig
 
@@ -420,6 +482,8 @@ def plot_grid(summary_path: str | Path, out_dir: str | Path, ranking: str | Path
         cut_table = _cuts_frame(_read_table(reduction, "--reduction"))
         jobs.append(("cuts", "Reduced mechanisms: size against error",
                      lambda: plot_cuts(cut_table, summary.sizes["reaction"])))
+        jobs.append(("criteria", "Reduction criteria side by side: size against the largest error",
+                     lambda: plot_criteria(cut_table, None, summary.sizes["reaction"])))
     for line in skipped:
         log(line)
     out_dir.mkdir(parents=True, exist_ok=True)  # only once every input has been read

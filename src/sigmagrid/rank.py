@@ -40,11 +40,14 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from . import fileformat, grid as grid_mod, mechanism, store
-from .config import cuts
+from . import criteria, fileformat, grid as grid_mod, mechanism, store
+from .config import SPECIES_CRITERIA, cuts
 from .errors import InputError
 
+#: The entropy criteria (the ``criterion`` coordinate of the ranking); the species criteria are
+#: in :mod:`sigmagrid.criteria`.
 CRITERIA = ("local", "integrated-max", "integrated-mean")
+ALL_CRITERIA = CRITERIA + SPECIES_CRITERIA
 #: Negative entropy produced beyond this fraction (1) of a case's sum |I_j| flags a reaction.
 NEGATIVE_TOLERANCE = 1e-9
 DEFAULT_INERT = ("N2", "AR", "HE", "Ar", "He")
@@ -154,7 +157,7 @@ def _arg(values: np.ndarray, fn) -> tuple[np.ndarray, np.ndarray]:
 
 
 def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 1e-3,
-         report: Callable[[str], None] | None = None) -> xr.Dataset:
+         report: Callable[[str], None] | None = None, config: dict | None = None) -> xr.Dataset:
     """Rank the reactions of a grid (the ranking.nc Dataset).
 
     Parameters
@@ -163,6 +166,8 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
     case_files : the case files; their stored ``entropy_production`` gives the local shares.
     The reaction coordinates (index, equation, duplicate group, reversibility) are the summary's.
     negligible : 1, see :func:`local_shares`.
+    config : a validated config; with it the species are ranked too, by DRG and DRGEP from the
+    targets of ``reduction.targets`` (see :mod:`sigmagrid.criteria`).
 
     Usable cases: status not ``failed`` and a positive, finite total of entropy produced.
     """
@@ -262,6 +267,19 @@ def rank(summary: xr.Dataset, case_files: list[str | Path], negligible: float = 
     coords.update({**store.reaction_coords_of(summary),
                    "criterion": ("criterion", np.array(CRITERIA, dtype=str), {"long_name": "ranking criterion"})})
     attrs = {k: summary.attrs[k] for k in ("mechanism", "mechanism_sha256", "study") if k in summary.attrs}
+    if config is not None:
+        gas = mechanism.load(mechanism.resolve(config["mechanism"]), phase=config.get("phase"))
+        importance, targets = criteria.importance_over_cases(
+            gas, [by_id.get(cid) for cid in case_ids], list(usable), reduction_settings(config)["targets"],
+            feed_species(config), inert_species(gas, config), negligible, report)
+        data["species_importance"] = var(("graph_method", "species"), importance, "1",
+                                         "largest importance of the species over the states of the usable cases")
+        data["graph_target"] = var(("species",), np.isin(gas.species_names, targets).astype(np.int8), "1",
+                                   "target species of the graph criteria", flag_meanings="no yes", **flag)
+        coords["species"] = ("species", np.array(gas.species_names, dtype=str), {"long_name": "species name"})
+        coords["graph_method"] = ("graph_method", np.array(criteria.GRAPH_METHODS, dtype=str),
+                                  {"long_name": "graph criterion of the species importance"})
+        attrs["graph_targets"] = ", ".join(targets)
     ranking = xr.Dataset(data, coords=coords, attrs={
         "title": f"sigmagrid reaction ranking {attrs.get('study', '')}".strip(), "source": "sigmagrid",
         "negligible_fraction": negligible,
@@ -306,10 +324,10 @@ def ranking_table(ranking: xr.Dataset) -> pd.DataFrame:
 
 
 def write_ranking(summary_path, case_files, table_path, netcdf_path, negligible: float = 1e-3,
-                  report: Callable[[str], None] | None = None) -> xr.Dataset:
-    """Rank and write ``ranking.csv`` and ``ranking.nc`` atomically."""
+                  report: Callable[[str], None] | None = None, config: dict | None = None) -> xr.Dataset:
+    """Rank and write ``ranking.csv`` and ``ranking.nc`` atomically (species too, given ``config``)."""
     summary = store.open_checked(summary_path, "summary")
-    ranking = rank(summary, case_files, negligible, report)
+    ranking = rank(summary, case_files, negligible, report, config)
     store.write_atomic(ranking, netcdf_path)
     store.write_text_atomic(ranking_table(ranking).to_csv(index=False, float_format="%.8g"), table_path)
     return ranking
@@ -323,15 +341,28 @@ def reduction_settings(config: dict) -> dict:
     return config["reduction"]
 
 
-def kept_reactions(ranking: xr.Dataset, criterion: str, threshold: float, negative: str = "keep") -> np.ndarray:
+def kept_reactions(ranking: xr.Dataset, criterion: str, threshold: float, negative: str = "keep",
+                   gas: ct.Solution | None = None, always: set[str] = frozenset(), sieve_share: float = 1e-3) -> np.ndarray:
     """Boolean mask of the reactions a cut keeps.
 
-    A duplicate group is kept when its score (clipped at 0 below, NaN counted as 0) is at or above
+    Species criteria (``drg``, ``drgep``, ``drgep-sieve``) need ``gas`` (the full mechanism) and
+    the species every cut keeps (``always``); see :mod:`sigmagrid.criteria`. For the entropy
+    criteria: a duplicate group is kept when its score (clipped at 0 below, NaN counted as 0) is at or above
     the threshold, so a threshold of 0 keeps every reaction and a higher threshold keeps a subset
     of a lower one. Groups that consume entropy follow ``negative`` (``keep`` or ``drop``).
     """
-    if criterion not in CRITERIA:
-        raise InputError("reduction.criteria", f"{criterion!r} is not a criterion; allowed: {', '.join(CRITERIA)}")
+    if criterion not in ALL_CRITERIA:
+        raise InputError("reduction.criteria", f"{criterion!r} is not a criterion; allowed: {', '.join(ALL_CRITERIA)}")
+    if criterion in SPECIES_CRITERIA:
+        if "species_importance" not in ranking:
+            raise InputError("--ranking", "holds no species importance: rank with --config to use "
+                                          f"the criterion {criterion}")
+        method = "drgep" if criterion == criteria.COMBINED else criterion
+        importance = ranking["species_importance"].sel(graph_method=method).values.astype(float)
+        keep = criteria.species_cut(gas, importance, threshold, always)
+        if criterion == criteria.COMBINED:
+            keep &= kept_reactions(ranking, "local", sieve_share, negative)
+        return keep
     score = np.nan_to_num(ranking["group_score"].sel(criterion=criterion).values.astype(float), nan=0.0)
     score = np.clip(score, 0.0, None)
     keep = score >= threshold
@@ -355,15 +386,26 @@ def feed_species(config: dict) -> set[str]:
     return names
 
 
+def inert_species(gas: ct.Solution, config: dict) -> set[str]:
+    """The config's ``inert`` species, or the usual diluents (N2, Ar, He) the mechanism has."""
+    inert = config.get("inert")
+    return set(inert) if inert is not None else {s for s in DEFAULT_INERT if s in gas.species_names}
+
+
+def always_kept(gas: ct.Solution, config: dict) -> set[str]:
+    """Species every cut keeps: the feed, the inert diluents, ``reduction.keep_species`` and the
+    species that act only as colliders (third-body efficiencies)."""
+    return (feed_species(config) | inert_species(gas, config) | set(reduction_settings(config).get("keep_species", []))
+            | criteria.third_body_only(gas))
+
+
 def species_to_keep(gas: ct.Solution, keep: np.ndarray, config: dict) -> list[str]:
     """Species of the kept reactions, plus feed species, inert species and ``reduction.keep_species``.
 
     In the mechanism's own order. A named third body of a falloff reaction ("(+AR)") counts as a
     species of that reaction.
     """
-    wanted = set(feed_species(config))
-    inert = config.get("inert")
-    wanted |= set(inert) if inert is not None else {s for s in DEFAULT_INERT if s in gas.species_names}
+    wanted = set(feed_species(config)) | inert_species(gas, config)
     wanted |= set(reduction_settings(config).get("keep_species", []))
     unknown = sorted(wanted - set(gas.species_names))
     if unknown:
@@ -472,14 +514,19 @@ def write_cuts(config: dict, ranking: xr.Dataset, out_dir: str | Path,
             or not np.array_equal(mechanism.source_indices(gas), ranking["reaction"].values)):
         raise InputError("mechanism", f"'{path.name}' is not the mechanism the ranking was made with")
     red = reduction_settings(config)
+    always = always_kept(gas, config)
     out = []
     for name, criterion, threshold in cuts(config):
-        keep = kept_reactions(ranking, criterion, threshold, red["negative_entropy"])
+        keep = kept_reactions(ranking, criterion, threshold, red["negative_entropy"], gas, always, red["sieve_share"])
         species = species_to_keep(gas, keep, config)
         solution = reduced_solution(path, keep, species, name=f"{path.stem}-{name}")
+        rule = (f"reactions whose {criterion} entropy-production share is at least {threshold:g}"
+                if criterion in CRITERIA else
+                f"reactions among the species whose {criterion} importance exceeds {threshold:g}"
+                + (f" and whose local entropy-production share reaches {red['sieve_share']:g}"
+                   if criterion == criteria.COMBINED else ""))
         description = (f"Reduced by sigmagrid from {path.name} (sha256 {mechanism.file_sha256(path)}): "
-                       f"reactions whose {criterion} entropy-production share is at least {threshold:g} "
-                       f"over the grid of study '{config.get('study', '')}', {int(keep.sum())} of "
+                       f"{rule} over the grid of study '{config.get('study', '')}', {int(keep.sum())} of "
                        f"{keep.size} reactions, {len(species)} of {gas.n_species} species. Model output: "
                        "check it on your own cases before use.")
         target = write_yaml_atomic(solution, Path(out_dir) / f"{name}.yaml", description, source_units(path))
@@ -514,14 +561,41 @@ def _physical_key(reactor, name, temperature, pressure) -> tuple:
     return (str(reactor), str(name), f"{float(temperature):.10g}", f"{float(pressure):.10g}")
 
 
+def _at_time(path: Path, t: float) -> tuple[float, float]:
+    """Temperature (K) and potential rise Phi(t) - Phi(0) (J K-1) of a stored path at time ``t`` (s),
+    linear between samples; past the last sample the path has stopped (at equilibrium)."""
+    with store.open_case(path) as ds:
+        time = ds["time"].values.astype(float)
+        temperature = float(np.interp(t, time, ds["temperature"].values.astype(float)))
+        potential = ds["potential"].values.astype(float)
+        return temperature, float(np.interp(t, time, potential) - potential[0])
+
+
+def judge_at_end(cut_case: Path, full_case: Path) -> tuple[float, float, float, float]:
+    """A case that does not reach equilibrium on the cut, judged on what it reaches: its end time
+    t_end (s), the temperature error |T_cut(t_end) - T_full(t_end)| (K), the relative error of the
+    potential rise (entropy produced) at t_end (1), and the full path's rise at t_end (J K-1)."""
+    with store.open_case(cut_case) as ds:
+        t_end = float(ds["time"].values[-1])
+    t_cut, rise_cut = _at_time(cut_case, t_end)
+    t_full, rise_full = _at_time(full_case, t_end)
+    return t_end, abs(t_cut - t_full), float(_relative(np.array([rise_cut]), np.array([rise_full]))[0]), rise_full
+
+
 def assess_cut(config: dict, mechanism_path: str | Path, summary: xr.Dataset, cases_dir: str | Path,
-               name: str = "", report: Callable[[str], None] = print) -> xr.Dataset:
+               name: str = "", report: Callable[[str], None] = print,
+               full_cases_dir: str | Path | None = None) -> xr.Dataset:
     """Rerun the grid's cases (or ``reduction.validation_cases``) on a reduced mechanism; per-case errors.
 
     Cases of the reduced run are matched to the full run by reactor, mixture name, initial
     temperature and pressure (case ids hash the mechanism, so they differ). Case files go to
     ``cases_dir`` and are reused on a rerun. A cut that does not load, or a case that fails on it,
     is recorded as a failure of the cut.
+
+    A case the full mechanism relaxes that only stops short of strict equilibrium on the cut
+    (status ``not-relaxed``, within ``stop.max_time``) is no failure: it is judged at its end time
+    against the full path at the same time (:func:`judge_at_end`, the full run's case files in
+    ``full_cases_dir``) and flagged in ``cut_judged_at_end``.
     """
     from . import config as config_mod, query, runner
 
@@ -583,8 +657,20 @@ def assess_cut(config: dict, mechanism_path: str | Path, summary: xr.Dataset, ca
         "entropy_produced_error": _relative(values["entropy_produced_total"], ref["entropy_produced_total"]),
     }
     full_status = full["status"].values.astype(str)
-    # a case fails the cut when the cut loses what the full mechanism achieved
-    failed = (status == "failed") | ((full_status == "relaxed") & (status != "relaxed"))
+    end_time = np.full(nc, np.nan)
+    at_end = (full_status == "relaxed") & (status == "not-relaxed")
+    for i in np.flatnonzero(at_end):
+        full_case = Path(full_cases_dir or "") / f"{full_ids[i]}.nc"
+        cut_case = Path(cases_dir) / f"{reduced_ids[i]}.nc"
+        if full_cases_dir is None or not full_case.is_file():
+            at_end[i] = False
+            reasons[i] = f"{reasons[i]}; the full path to judge it at its end time is not available"
+            continue
+        end_time[i], errors["equilibrium_temperature_error"][i], errors["entropy_produced_error"][i], _ = \
+            judge_at_end(cut_case, full_case)
+    # a case fails the cut when the cut loses what the full mechanism achieved (stopping short of
+    # strict equilibrium within max_time is judged on what it reaches instead)
+    failed = (status == "failed") | ((full_status == "relaxed") & (status != "relaxed") & ~at_end)
     failed &= full_status != "failed"
     for k in errors:
         errors[k] = np.where(failed, np.nan, errors[k])
@@ -601,6 +687,8 @@ def assess_cut(config: dict, mechanism_path: str | Path, summary: xr.Dataset, ca
                                                         "flag_meanings": "no yes"}),
         "cut_reason": ("case", reasons.astype(str), {"long_name": "why the case did not relax on the cut"}),
         "cut_case_id": ("case", reduced_ids.astype(str), {"long_name": "id of the case in the reduced run"}),
+        "cut_judged_at_end": ("case", at_end.astype(np.int8), {}),
+        "cut_end_time": ("case", end_time, {}),
     })
     coords = {c: full.coords[c] for c in full.coords if full.coords[c].dims == ("case",)}
     # the reactions the cut keeps, by their index in the full mechanism
@@ -644,13 +732,16 @@ def summarize_cuts(config: dict, ranking: xr.Dataset, cut_dir: str | Path,
             for k in ERRORS:
                 row[f"{k}_max [{ERRORS[k][0]}]"] = np.nan
                 row[f"{k}_median [{ERRORS[k][0]}]"] = np.nan
-            row["cases [1]"], row["failed_cases [1]"] = 0, 0
+            row["cases [1]"], row["failed_cases [1]"], row["judged_at_end_cases [1]"] = 0, 0, 0
+            row["largest_error_ratio [1]"] = np.nan
             row["within_tolerances"] = False
         else:
             row["validated"] = True
             failed = v["cut_failed"].values.astype(bool)
             row["cases [1]"], row["failed_cases [1]"] = int(v.sizes["case"]), int(failed.sum())
-            ok = True
+            at_end = v["cut_judged_at_end"].values.astype(bool) if "cut_judged_at_end" in v else np.zeros(failed.size, bool)
+            row["judged_at_end_cases [1]"] = int(at_end.sum())
+            ok, ratios = True, []
             for k in ERRORS:
                 e = v[k].values.astype(float)
                 e = e[~failed & ~np.isnan(e)]
@@ -658,6 +749,10 @@ def summarize_cuts(config: dict, ranking: xr.Dataset, cut_dir: str | Path,
                 row[f"{k}_max [{ERRORS[k][0]}]"] = largest
                 row[f"{k}_median [{ERRORS[k][0]}]"] = float(np.median(e)) if e.size else np.nan
                 ok &= bool(e.size == 0 or largest <= tol[k])
+                if e.size:
+                    ratios.append(largest / tol[k] if tol[k] > 0 else (0.0 if largest == 0 else np.inf))
+            # one number on one axis for every criterion: the worst error in units of its tolerance
+            row["largest_error_ratio [1]"] = max(ratios) if ratios else np.nan
             row["within_tolerances"] = bool(ok and not failed.any() and row["species [1]"] >= 0
                                             and not v.attrs.get("load_error"))
             if v.attrs.get("load_error"):
@@ -674,6 +769,8 @@ def summarize_cuts(config: dict, ranking: xr.Dataset, cut_dir: str | Path,
         smallest = str(fits.sort_values(["species [1]", "reactions [1]", "threshold [1]"],
                                         ascending=[True, True, False]).iloc[0]["cut"])
     table["smallest_within_tolerances"] = table["cut"] == smallest
+    by_criterion = smallest_by_criterion(table)
+    table["smallest_of_criterion"] = table["cut"].isin([c for c in by_criterion.values() if c])
     if "note" not in table:
         table["note"] = ""
     table["note"] = table["note"].fillna("")
@@ -687,6 +784,9 @@ def summarize_cuts(config: dict, ranking: xr.Dataset, cut_dir: str | Path,
         "n_species": ("cut", col("species [1]", int), {"units": "1", "long_name": "species in the cut"}),
         "n_reactions": ("cut", col("reactions [1]", int), {"units": "1", "long_name": "reactions in the cut"}),
         "failed_cases": ("cut", col("failed_cases [1]", int), {"units": "1", "long_name": "cases that fail on the cut"}),
+        "judged_at_end_cases": ("cut", col("judged_at_end_cases [1]", int), {}),
+        "largest_error_ratio": ("cut", col("largest_error_ratio [1]"), {}),
+        "smallest_of_criterion": ("cut", col("smallest_of_criterion", bool).astype(np.int8), {}),
         "within_tolerances": ("cut", col("within_tolerances", bool).astype(np.int8),
                               {"units": "1", "long_name": "validated, no failed case, largest errors within tolerances",
                                "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "no yes"}),
@@ -706,9 +806,22 @@ def summarize_cuts(config: dict, ranking: xr.Dataset, cut_dir: str | Path,
     ds = xr.Dataset(data, coords={"cut": ("cut", col("cut", str), {"long_name": "cut name"}), **case_coords}, attrs={
         "title": "sigmagrid reduced mechanisms and what they cost",
         "source": "sigmagrid", "smallest_within_tolerances": smallest,
+        "smallest_by_criterion": "; ".join(f"{c}: {n or 'none'}" for c, n in by_criterion.items()),
         **{f"tolerance_{k}": float(v) for k, v in tol.items()},
         "comment": "errors are against the full mechanism on the same cases; median is the typical error"})
     return fileformat.finish(ds, "reduction", f"{len(rows)} cuts summarized"), table
+
+
+def smallest_by_criterion(table: pd.DataFrame) -> dict[str, str]:
+    """Per criterion (in table order) the name of its smallest cut within tolerances ('' if none):
+    fewest species, then fewest reactions, then the highest threshold."""
+    out = {}
+    for criterion in dict.fromkeys(table["criterion"]):
+        fits = table[(table["criterion"] == criterion) & table["within_tolerances"].astype(bool)]
+        out[criterion] = "" if fits.empty else str(
+            fits.sort_values(["species [1]", "reactions [1]", "threshold [1]"], ascending=[True, True, False])
+            .iloc[0]["cut"])
+    return out
 
 
 def write_reduction(config: dict, ranking_path, cut_dir, table_path, netcdf_path,
@@ -752,7 +865,7 @@ def reduce_in_process(config: dict, results: str | Path = "results",
                          "config: run `sigmagrid run CONFIG --results DIR` first")
     progress.write(files, results / "progress.nc", int(config["progress_grid"]["points"]), report=report)
     ranking = write_ranking(summary_path, files, results / "ranking.csv", results / "ranking.nc",
-                            float(reduction_settings(config)["negligible"]), report=report)
+                            float(reduction_settings(config)["negligible"]), report=report, config=config)
     cut_dir = results / "reduced"
     written = write_cuts(config, ranking, cut_dir, report=report)
     validations = None
@@ -761,7 +874,8 @@ def reduce_in_process(config: dict, results: str | Path = "results",
         validations = {}
         for cut in written:
             target = cut_dir / cut.name / "validation.nc"
-            result = assess_cut(config, cut.path, summary, cut_dir / cut.name / "cases", cut.name, report)
+            result = assess_cut(config, cut.path, summary, cut_dir / cut.name / "cases", cut.name, report,
+                                full_cases_dir=results / "cases")
             store.write_atomic(result, target)
             validations[cut.name] = target
     ds, table = write_reduction(config, results / "ranking.nc", cut_dir, results / "reduction.csv",

@@ -74,7 +74,8 @@ rule reduction:
         mechanisms=[reduced_file(c) for c in CUTS],
         validations=[f"{RESULTS}/reduced/{c}/validation.nc" for c in CUTS] if VALIDATE_CUTS else [],
     output:
-        table=f"{RESULTS}/reduction.csv",
+        table=report(f"{RESULTS}/reduction.csv", caption="../report/reduction_table.rst", category="Grid figures",
+                     labels={"figure": "reduction table"}),
         reduction=f"{RESULTS}/reduction.nc",
     params:
         validation="" if VALIDATE_CUTS else "--no-validation",
