@@ -1,4 +1,4 @@
-"""Affinities, rates of progress and entropy production of every reaction (DESIGN section 2).
+"""Affinities, rates of progress and entropy production of every reaction.
 
 Sign conventions: nu[k, j] = products minus reactants; the affinity A_j = -sum_k nu[k, j] mu_k is
 positive when reaction j runs forward on its way to equilibrium. Rates of progress are mol/(m3 s),
@@ -83,7 +83,7 @@ def evaluate(gas: ct.Solution, temperature, density, mass_fractions) -> Reaction
 
 @dataclass
 class SignAudit:
-    """Which reactions produce negative entropy, and how much (DESIGN section 2)."""
+    """Which reactions produce negative entropy, and how much."""
 
     n_irreversible: int
     negative_share: float  # -sum(I_j < 0) / sum |I_j|, dimensionless

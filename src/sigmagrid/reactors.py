@@ -1,6 +1,6 @@
 """One relaxation to equilibrium in a Cantera reactor, at full solver resolution.
 
-Reactor types (DESIGN section 2):
+Reactor types:
 
 ========================  ==========  ==================================  =====================
 name                      held fixed  Cantera reactor                     potential Phi, J/K

@@ -1,4 +1,4 @@
-"""Flammability and closed-vessel flags for an initial mixture (DESIGN section 8).
+"""Flammability and closed-vessel flags for an initial mixture.
 
 These are screening flags for people handling the mixtures, not a hazard assessment: the results
 of this program are model outputs and no basis for vessel design, venting or hazard

@@ -1,6 +1,6 @@
 """Physical constants and unit conversions at the Cantera boundary.
 
-Cantera works in kmol; sigmagrid reports mol-based SI values (DESIGN section 2).
+Cantera works in kmol; sigmagrid reports mol-based SI values.
 Unit strings are UDUNITS-2 spellings so that the netCDF files pass the CF checks.
 """
 

@@ -1,4 +1,4 @@
-"""Steepest-entropy-ascent (SEA) comparison of a relaxation (DESIGN section 3).
+"""Steepest-entropy-ascent (SEA) comparison of a relaxation.
 
 In reaction-extent space the entropy gradient at fixed (U, V), (H, P) -- or the gradient of
 S - H/T at fixed (T, P) -- is the affinity over temperature, so a symmetric positive mobility M

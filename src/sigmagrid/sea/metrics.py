@@ -1,4 +1,4 @@
-"""Metrics, fits, alignment and path distances of the SEA comparison (DESIGN section 3).
+"""Metrics, fits, alignment and path distances of the SEA comparison.
 
 Arrays are (samples, reactions) unless said otherwise; rates are mol m-3 s-1, the disequilibrium
 x = A/(RT) is dimensionless, mobilities are mol m-3 s-1.
@@ -67,7 +67,7 @@ def alignment(x: np.ndarray, q: np.ndarray, mobility: np.ndarray) -> np.ndarray:
 
 
 def path_weights(kind: str, time: np.ndarray, potential: np.ndarray, progress: np.ndarray) -> np.ndarray:
-    """Per-sample trapezoid weights of the fits (DESIGN section 3).
+    """Per-sample trapezoid weights of the fits.
 
     ``entropy``: entropy produced around each sample, J/K (increments of the potential);
     ``time``: s; ``progress``: 1. Negative increments (round-off near the end) count as zero.
