@@ -160,7 +160,7 @@ def test_plot_command_refuses_a_bad_top(flow, tmp_path):
 
 def test_samples_follow_the_exact_mass_action_curve(flow):
     # What the affinity-rate figure draws: for mass action with detailed balance r-/r+ = exp(-x),
-    # so q = r+ (1 - exp(-x)) (de Donder; DESIGN section 2). The stored samples keep 4-5
+    # so q = r+ (1 - exp(-x)) (de Donder). The stored samples keep 4-5
     # significant digits (store.SIGNIFICANT_DIGITS), which limits the agreement to about 1e-4.
     case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
     with xr.open_dataset(case) as ds:

@@ -327,7 +327,7 @@ def test_other_weights_change_the_fit(h2o2_gas):
     """Uniform-in-time weighting differs from entropy weighting; progress weighting equals it.
 
     lambda = (Phi - Phi_0)/(Phi_eq - Phi_0) is affine in the potential, so equal progress steps are
-    equal entropy production (DESIGN section 4): the two weights agree up to a constant factor.
+    equal entropy production: the two weights agree up to a constant factor.
     """
     gas, info = h2o2_gas
     rel = reactors.relax(gas, info, "constant-pressure", 1100.0, ct.one_atm, "H2:2, O2:1, N2:3.76", FAST)
