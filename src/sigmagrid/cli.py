@@ -123,7 +123,10 @@ def cmd_check(args) -> int:
     from . import config as config_mod, grid as grid_mod, runner
 
     text = config_mod.read_config_text(args.config)
-    raw = json.loads(text) if args.config.endswith(".json") else config_mod.read_yaml(text, f"'{args.config}'")
+    try:
+        raw = json.loads(text) if args.config.endswith(".json") else config_mod.read_yaml(text, f"'{args.config}'")
+    except (json.JSONDecodeError, RecursionError) as err:
+        raise InputError("config file", f"'{args.config}' is not valid JSON: {err}") from None
     found = config_mod.problems(raw)
     for field, message in found:
         print(f"sigmagrid: error: {field}: {message}", file=sys.stderr)
