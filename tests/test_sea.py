@@ -643,9 +643,13 @@ def test_analytic_jacobian_against_finite_differences(h2o2_gas, reactor, kind, r
 
     # the progress clock's Jacobian (``_kernels.clock_transform``: the product rule on tau f with
     # the Hessian of the potential on the reactor's constraint), against central differences of
-    # dz/ds; Phi_eq set above the state's potential by a tenth of its size
-    system.state(z)
-    system.phi_eq = system.potential() + 0.1 * abs(system.potential())
+    # dz/ds; Phi_eq set above the state's potential by a tenth of its size, and element
+    # potentials of 1-3 (mu/RT) so that the deficit's Lagrangian term (``_kernels.deficit``) is in it
+    n, _, _ = system.state(z)
+    elements = np.array([[system.gas.n_atoms(k, e) for k in range(system.gas.n_species)]
+                         for e in range(system.gas.n_elements)], float)
+    mu_eq = elements.T @ np.linspace(1.0, 3.0, system.gas.n_elements)
+    system.aim(system.potential() + 0.1 * abs(system.potential()), mu_eq, n)
     JF = system.clock_jac(0.0, z)
     for i in range(z.size):
         d = 1e-6 * max(1.0, abs(z[i]))
