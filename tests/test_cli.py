@@ -32,7 +32,7 @@ def test_case_then_show(tmp_path):
     shown = run_cli("show", str(out))
     assert shown.returncode == 0
     for text in ("relaxed", "balance residual", "closed-vessel pressure ratio", "caution", "sha256",
-                 "top 8 reactions", "steepest-entropy-ascent comparison (from progress 0.01; fits weighted by entropy",
+                 "top 10 reactions", "steepest-entropy-ascent comparison (from progress 0.01; fits weighted by entropy",
                  "onsager           ok", "fitted-arrhenius", "slowest relaxation rates at equilibrium"):
         assert text in shown.stdout, text
 

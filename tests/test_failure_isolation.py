@@ -46,7 +46,7 @@ def workflow_run(tmp_path_factory):
     folder = tmp_path_factory.mktemp("failing")
     _pathological(folder)
     (folder / "config.yaml").write_text(yaml.safe_dump(CONFIG, sort_keys=False))
-    batch = run_cli("batch", "config.yaml", "--index", "0", "--out", "results/cases", cwd=folder)
+    batch = run_cli("batch", "config.yaml", "--index", "0", "--out-dir", "results/cases", cwd=folder)
     files = sorted(str(p) for p in (folder / "results" / "cases").glob("*.nc"))
     summary = run_cli("summarize", *files, "--summary", "results/summary.nc", "--table", "results/cases.csv",
                       cwd=folder)

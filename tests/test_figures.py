@@ -124,7 +124,7 @@ def test_report_is_self_contained_with_every_figure_and_caption(flow):
 def test_plot_command_writes_the_case_figures(flow, tmp_path):
     case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
     out = tmp_path / "figs"
-    done = run_cli("plot", str(case), "--out", str(out), "--top", "4")
+    done = run_cli("plot", str(case), "--out-dir", str(out), "--top", "4")
     assert done.returncode == 0, done.stderr
     for name in expected_case_figures(case):
         assert_image(out / f"{name}.png", figures.SIZE)
@@ -141,7 +141,7 @@ def test_plot_command_refuses_what_is_not_a_case_file(flow, tmp_path, make):
     else:
         target = tmp_path / "absent.nc"
     out = tmp_path / "never"
-    done = run_cli("plot", str(target), "--out", str(out))
+    done = run_cli("plot", str(target), "--out-dir", str(out))
     assert done.returncode == 2
     lines = done.stderr.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("sigmagrid: error: FILE: "), done.stderr
@@ -153,7 +153,7 @@ def test_plot_command_refuses_what_is_not_a_case_file(flow, tmp_path, make):
 
 def test_plot_command_refuses_a_bad_top(flow, tmp_path):
     case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
-    done = run_cli("plot", str(case), "--out", str(tmp_path / "x"), "--top", "0")
+    done = run_cli("plot", str(case), "--out-dir", str(tmp_path / "x"), "--top", "0")
     assert done.returncode == 2 and done.stderr.startswith("sigmagrid: error: --top: ")
     assert not (tmp_path / "x").exists()
 
@@ -315,7 +315,7 @@ def test_map_marks_missing_and_unrelaxed_cases(tmp_path):
 
 def test_grid_figures_refuse_a_case_file(flow, tmp_path):
     case = sorted((flow / "results" / "cases").glob("*.nc"))[0]
-    done = run_cli("plot-grid", str(case), "--out", str(tmp_path / "g"))
+    done = run_cli("plot-grid", str(case), "--out-dir", str(tmp_path / "g"))
     assert done.returncode == 2 and done.stderr.startswith("sigmagrid: error: SUMMARY: ")
     assert "sigmagrid plot" in done.stderr and not (tmp_path / "g").exists()
 
@@ -323,10 +323,10 @@ def test_grid_figures_refuse_a_case_file(flow, tmp_path):
 @pytest.mark.parametrize("args, field", [
     (["--ranking", "results/summary.nc"], "--ranking"),
     (["--reduction", "results/no-such-file.nc"], "--reduction"),
-    (["--out", "results/summary.nc"], "--out"),
+    (["--out-dir", "results/summary.nc"], "--out-dir"),
 ])
 def test_plot_grid_refuses_bad_inputs_before_writing(flow, args, field):
-    out = ["--out", "results/never"] if "--out" not in args else []
+    out = ["--out-dir", "results/never"] if "--out-dir" not in args else []
     done = run_cli("plot-grid", "results/summary.nc", *out, *args, cwd=flow)
     assert done.returncode == 2, done.stderr
     assert done.stderr.startswith(f"sigmagrid: error: {field}: ") and len(done.stderr.strip().splitlines()) == 1
@@ -334,7 +334,7 @@ def test_plot_grid_refuses_bad_inputs_before_writing(flow, args, field):
 
 
 def test_plot_grid_reads_the_csv_tables_too(flow, tmp_path):
-    done = run_cli("plot-grid", "results/summary.nc", "--out", str(tmp_path), "--ranking", "results/ranking.csv",
+    done = run_cli("plot-grid", "results/summary.nc", "--out-dir", str(tmp_path), "--ranking", "results/ranking.csv",
                    "--reduction", "results/reduction.csv", cwd=flow)
     assert done.returncode == 0, done.stderr
     assert_image(tmp_path / "ranking.png", grid_figures.RANKING_SIZE)

@@ -144,7 +144,7 @@ def test_case_table_and_sea_columns_when_present(finished, tmp_path):
 
 
 def test_output_formats(finished):
-    base = ["query", "top", "--summary", str(finished / "summary.nc"), "-n", "4", "--select", "reactor=isolated"]
+    base = ["query", "top", "--summary", str(finished / "summary.nc"), "--top", "4", "--select", "reactor=isolated"]
     csv = run_cli(*base, "--format", "csv")
     assert csv.returncode == 0, csv.stderr
     frame = pd.read_csv(io.StringIO(csv.stdout))

@@ -8,7 +8,7 @@
     sigmagrid show FILE.nc              readable summary of a case file
     sigmagrid batch CONFIG --index K    run batch K of a grid (what the workflow calls)
     sigmagrid summarize FILES... --summary S --table T
-    sigmagrid plot FILE.nc [--out D]    per-case figures (more in cli_plot.py)
+    sigmagrid plot FILE.nc [--out-dir D] per-case figures (more in cli_plot.py)
 
 Exit status: 0 done (every case relaxed or not-relaxed: both are results); 2 bad input (one line
 naming the field, no output file); 3 ``run`` or ``case`` finished but one or more cases failed
@@ -23,10 +23,11 @@ import argparse
 import errno
 import json
 import os
+import re
 import sys
 from pathlib import Path
 
-from .errors import FormatError, InputError, StorageError
+from .errors import TABLE_ROWS, FormatError, InputError, StorageError, positive_int as _positive_int
 from .messages import QUIET, NORMAL, VERBOSE, detail, say, set_level
 
 EXIT_INPUT = 2
@@ -169,7 +170,7 @@ def cmd_batch(args) -> int:
     batches = grid.batches(config["batch"]["cases_per_job"])
     if not 0 <= args.index < len(batches):
         raise InputError("--index", f"must be between 0 and {len(batches) - 1}, got {args.index}")
-    runner.run_cases(config, list(batches[args.index]), args.out, report=say, detail=detail,
+    runner.run_cases(config, list(batches[args.index]), args.out_dir, report=say, detail=detail,
                      grid=grid)
     return 0
 
@@ -304,15 +305,6 @@ def cmd_bench(args) -> int:
     return 0
 
 
-def _positive_int(text: str) -> int:
-    """An argparse type: an integer >= 1 (the message names the allowed values)."""
-    try:
-        value = int(text)
-    except ValueError:
-        value = 0
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"must be a whole number >= 1, not {text!r}")
-    return value
 
 
 def _available_cores() -> int:
@@ -330,8 +322,18 @@ def _version() -> str:
     return f"sigmagrid {__version__} (Cantera {version('cantera')}, numba {version('numba')})"
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with bad options reported as every other bad input: one line naming the field
+    and what is allowed, exit status 2 (argparse's own prints the usage first)."""
+
+    def error(self, message):
+        message = re.sub(r"^argument ([^:]+): ", lambda m: m.group(1).split("/")[0] + ": ", message)
+        sys.stderr.write(f"sigmagrid: error: {message} (options: {self.prog} --help)\n")
+        sys.exit(2)
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="sigmagrid", description="Relaxation of reacting mixtures to "
+    parser = _Parser(prog="sigmagrid", description="Relaxation of reacting mixtures to "
                                      "equilibrium with per-reaction entropy production, over a grid of cases.")
     parser.add_argument("--version", action="version", version=_version())
     loudness = parser.add_mutually_exclusive_group()
@@ -360,7 +362,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("batch", help="run one batch of a grid's cases (used by the workflow)")
     p.add_argument("config")
     p.add_argument("--index", type=int, required=True, help="batch number, from 0")
-    p.add_argument("--out", default="results/cases", help="folder of the case files")
+    p.add_argument("--out-dir", default="results/cases", help="folder of the case files (default: results/cases)")
     p.set_defaults(func=cmd_batch)
 
     p = sub.add_parser("summarize", help="combine case files into summary.nc and cases.csv")
@@ -414,7 +416,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("show", help="readable summary of a case file")
     p.add_argument("file")
-    p.add_argument("--top", type=_positive_int, default=8, help="how many reactions to list (default 8)")
+    p.add_argument("--top", type=_positive_int, default=TABLE_ROWS,
+                   help=f"how many reactions to list (default {TABLE_ROWS})")
     p.add_argument("--json", action="store_true", help="JSON for scripts instead of text")
     p.set_defaults(func=cmd_show)
 

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from .errors import InputError
+from .errors import TABLE_ROWS, InputError, positive_int
 
 
 def _say(line: str) -> None:
@@ -166,16 +166,16 @@ def cmd_query_top(args) -> int:
     selection = query.parse_selection(args.select)
     if args.by == "local":
         r = query.open_dataset(args.ranking, "--ranking")
-        table = query.top_reactions_local(r, selection, args.n)
+        table = query.top_reactions_local(r, selection, args.top)
         note = (f"# top {len(table)} reactions by largest local share sigma_j/sigma over {table.attrs['cases']} "
                 "case(s); reactions that consume entropy last")
     elif args.at is not None:
         p = query.open_dataset(args.progress, "--progress")
-        table = query.top_reactions_at(p, args.at, selection, args.n)
+        table = query.top_reactions_at(p, args.at, selection, args.top)
         note = f"# top {len(table)} reactions by share of the entropy production at progress {table.attrs['progress']:g}"
     else:
         s = query.open_dataset(args.summary, "--summary")
-        table = query.top_reactions(s, selection, args.n, args.by)
+        table = query.top_reactions(s, selection, args.top, args.by)
         note = f"# top {len(table)} reactions by {args.by} integrated share over {table.attrs['cases']} case(s)"
     return _emit(table, args.format, note)
 
@@ -285,7 +285,7 @@ def add_commands(sub) -> None:
     qs = q.add_subparsers(dest="query", required=True)
     p = qs.add_parser("top", help="reactions that produce the most entropy over selected cases")
     p.add_argument("--summary", default="results/summary.nc")
-    p.add_argument("-n", type=int, default=10, help="how many reactions (default 10)")
+    p.add_argument("--top", type=positive_int, default=TABLE_ROWS, help=f"how many reactions (default {TABLE_ROWS})")
     p.add_argument("--by", default="mean", choices=("mean", "max", "local"),
                    help="mean or largest integrated share over the cases, or the largest local share "
                         "(from --ranking)")

@@ -10,6 +10,23 @@ class InputError(ValueError):
         super().__init__(f"{field}: {message}")
 
 
+def positive_int(text: str) -> int:
+    """An argparse type: an integer >= 1 (the message names the allowed values)."""
+    import argparse
+
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1, not {text!r}")
+    return value
+
+
+#: rows of a printed table of reactions (``show``, ``query top``)
+TABLE_ROWS = 10
+
+
 class CaseFailure(RuntimeError):
     """A single case could not be computed; the reason is stored with the case."""
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import safety, store
+from .errors import TABLE_ROWS
 
 
 def _cost(ds, i: int) -> str:
@@ -19,7 +20,7 @@ def _fmt(value: float, unit: str, spec: str = ".4g") -> str:
     return "missing" if not np.isfinite(value) else f"{value:{spec}} {unit}"
 
 
-def describe_case(path, top: int = 8) -> str:
+def describe_case(path, top: int = TABLE_ROWS) -> str:
     """Status, checks, headline numbers, the reactions that produce the most entropy, provenance."""
     ds = store.open_case(path)
     a = ds.attrs
@@ -116,7 +117,7 @@ def _sea_lines(ds) -> list[str]:
     return lines
 
 
-def case_record(path, top: int = 8) -> dict:
+def case_record(path, top: int = TABLE_ROWS) -> dict:
     """What :func:`describe_case` prints, for scripts (``sigmagrid show --json``): every number
     as {"value", "units"}, NaN as null with the reason the file gives."""
     ds = store.open_case(path)

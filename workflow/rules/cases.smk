@@ -16,4 +16,4 @@ for _index, _batch in enumerate(BATCHES):
         log:
             f"{RESULTS}/logs/batch_{_index:04d}.log",
         shell:
-            "{SIGMAGRID} batch {input} --index {params.index} --out {RESULTS}/cases > {log} 2>&1"
+            "{SIGMAGRID} batch {input} --index {params.index} --out-dir {RESULTS}/cases > {log} 2>&1"

@@ -49,7 +49,7 @@ for _index, _cases in enumerate(_FIGURE_BATCHES):
         log:
             f"{RESULTS}/logs/figures_cases_{_index:03d}.log",
         shell:
-            "{SIGMAGRID} plot-cases {input} --root {RESULTS}/figures/cases --top {params.top} > {log} 2>&1"
+            "{SIGMAGRID} plot-cases {input} --out-dir {RESULTS}/figures/cases --top {params.top} > {log} 2>&1"
 
 
 rule grid_figures:
@@ -71,7 +71,7 @@ rule grid_figures:
     log:
         f"{RESULTS}/logs/figures_grid.log",
     shell:
-        "{SIGMAGRID} plot-grid {input.summary} --out {output} {params.tables} --top {params.top} > {log} 2>&1"
+        "{SIGMAGRID} plot-grid {input.summary} --out-dir {output} {params.tables} --top {params.top} > {log} 2>&1"
 
 
 FIGURE_TARGETS = [f"{RESULTS}/figures/cases/{c.case_id}" for c in FIGURE_CASES] + [f"{RESULTS}/figures/grid"]
