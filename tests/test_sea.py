@@ -323,6 +323,26 @@ def test_settings_from_mapping():
         sea.SeaSettings.from_mapping({"weight": "mass"})
 
 
+@pytest.mark.parametrize("field, value, allowed", [
+    ("metrics", ["onsager", "euclid"], "allowed: ('log-mean'"),
+    ("start_progress", 0.7, "in [0, 0.5)"),
+    ("end_progress", 1.0, "in (start_progress = 0.01, 1)"),
+    ("n_progress", 1, "whole number >= 2"),
+    ("n_modes", 2.5, "whole number >= 1"),
+    ("max_steps", 0, "whole number >= 1"),
+    ("mobility_floor", 1.0, "in [0, 1)"),
+    ("trace_level", 0.1, "in [0, 1e-3]"),
+    ("metric_rtol", 0.0, "a number > 0"),
+    ("max_wall_seconds", -1, "a number > 0"),
+])
+def test_bad_sea_settings_name_the_field_and_the_allowed_values(field, value, allowed):
+    """One line naming the field, the value given and what is allowed (the project's rule for bad input)."""
+    with pytest.raises(ValueError) as err:
+        sea.SeaSettings.from_mapping({field: value})
+    message = str(err.value)
+    assert message.startswith(f"sea.{field}") and allowed in message and "\n" not in message, message
+
+
 def test_other_weights_change_the_fit(h2o2_gas):
     """Uniform-in-time weighting differs from entropy weighting; progress weighting equals it.
 

@@ -92,11 +92,20 @@ class SeaSettings:
             raise ValueError(f"sea.weight must be one of {WEIGHTS}, not {self.weight!r}")
         if self.irreversible not in IRREVERSIBLE_TREATMENTS:
             raise ValueError(f"sea.irreversible must be one of {IRREVERSIBLE_TREATMENTS}")
-        if not 0.0 <= self.start_progress < self.end_progress < 1.0:
-            raise ValueError("sea: need 0 <= start_progress < end_progress < 1")
-        if self.n_progress < 2 or self.n_modes < 1:
-            raise ValueError("sea: n_progress >= 2 and n_modes >= 1")
+        if not 0.0 <= self.start_progress < 0.5:
+            raise ValueError(f"sea.start_progress must be in [0, 0.5), not {self.start_progress!r}")
+        if not self.start_progress < self.end_progress < 1.0:
+            raise ValueError(f"sea.end_progress must be in (start_progress = {self.start_progress!r}, 1), "
+                             f"not {self.end_progress!r}")
+        for name, least in (("n_progress", 2), ("n_modes", 1), ("max_steps", 1)):
+            value = getattr(self, name)
+            if not (isinstance(value, int) and value >= least):
+                raise ValueError(f"sea.{name} must be a whole number >= {least}, not {value!r}")
         if not 0.0 <= self.mobility_floor < 1.0:
             raise ValueError(f"sea.mobility_floor must be in [0, 1), not {self.mobility_floor!r}")
-        if not (self.rtol > 0 and self.atol > 0 and self.metric_rtol > 0 and self.metric_atol > 0):
-            raise ValueError("sea: rtol and atol must be positive")
+        if not 0.0 <= self.trace_level <= 1e-3:
+            raise ValueError(f"sea.trace_level must be in [0, 1e-3], not {self.trace_level!r}")
+        for name in ("rtol", "atol", "metric_rtol", "metric_atol", "max_wall_seconds"):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and value > 0):
+                raise ValueError(f"sea.{name} must be a number > 0, not {value!r}")
