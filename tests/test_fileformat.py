@@ -184,3 +184,23 @@ def test_gri30_reactions_by_index_and_a_cut_keeps_the_full_indices(tmp_path):
     np.testing.assert_array_equal(cut_ds["reaction"].values, np.flatnonzero(keep))
     for j in cut_ds["reaction"].values[:20]:
         assert str(cut_ds["equation"].sel(reaction=j).values) == gas.reaction(int(j)).equation
+
+
+def test_the_cut_report_as_json_is_the_table(default_run, tmp_path):
+    """`cut-report --json`: stdout is one JSON document (messages on stderr) holding the rows of
+    reduction.csv, the tolerances with their units and the smallest cut within them."""
+    import json
+
+    import pandas as pd
+
+    done = run_cli("cut-report", "config/config.yaml", "--table", str(tmp_path / "r.csv"), "--out",
+                   str(tmp_path / "r.nc"), "--json", cwd=default_run)
+    assert done.returncode == 0, done.stderr[-2000:]
+    report = json.loads(done.stdout)
+    table = pd.read_csv(tmp_path / "r.csv")
+    assert [row["cut"] for row in report["cuts"]] == list(table["cut"])
+    assert set(report["tolerances"]) == {"ignition_delay_error [1]", "equilibrium_temperature_error [K]",
+                                         "entropy_produced_error [1]"}
+    with xr.open_dataset(tmp_path / "r.nc") as ds:
+        assert report["smallest_within_tolerances"] == (ds.attrs["smallest_within_tolerances"] or None)
+    assert "wrote" in done.stderr

@@ -17,10 +17,9 @@ from __future__ import annotations
 from pathlib import Path
 
 from .errors import TABLE_ROWS, InputError, positive_int
+from .messages import say as _say
 
 
-def _say(line: str) -> None:
-    print(line, flush=True)
 
 
 def _config(path: str) -> dict:
@@ -48,7 +47,7 @@ def cmd_resample(args) -> int:
         ds = progress.write(args.files, args.out, points, report=_say)
     except ValueError as err:  # no readable case file
         raise InputError("files", str(err)) from None
-    print(f"wrote {args.out}: {ds.sizes['case']} cases x {ds.sizes['progress']} progress levels")
+    _say(f"wrote {args.out}: {ds.sizes['case']} cases x {ds.sizes['progress']} progress levels")
     return 0
 
 
@@ -67,7 +66,7 @@ def cmd_rank(args) -> int:
     except ValueError as err:  # no usable case
         raise InputError("files", str(err)) from None
     flagged = int(ranking["negative_entropy"].sum())
-    print(f"wrote {args.table} and {args.out}: {ranking.sizes['reaction']} reactions over "
+    _say(f"wrote {args.table} and {args.out}: {ranking.sizes['reaction']} reactions over "
           f"{ranking.attrs['n_cases_used']} of {ranking.attrs['n_cases']} cases; "
           f"{flagged} reaction(s) consume entropy somewhere (flagged, not ranked)")
     return 0
@@ -84,7 +83,7 @@ def cmd_cut(args) -> int:
 
     config = _config(args.config)
     cuts = rank.write_cuts(config, _ranking(args.ranking), args.out_dir, report=_say)
-    print(f"wrote {len(cuts)} reduced mechanism(s) to {args.out_dir}")
+    _say(f"wrote {len(cuts)} reduced mechanism(s) to {args.out_dir}")
     return 0
 
 
@@ -101,14 +100,27 @@ def cmd_assess_cut(args) -> int:
                              full_cases_dir=full_cases)
     store.write_atomic(result, args.out)
     failed = int(result["cut_failed"].sum())
-    print(f"wrote {args.out}: cut {name}, {result.sizes['case']} cases, {failed} failed on the cut"
+    _say(f"wrote {args.out}: cut {name}, {result.sizes['case']} cases, {failed} failed on the cut"
           + (f" ({result.attrs['load_error']})" if result.attrs["load_error"] else ""))
     return 0
 
 
-def _print_reduction(table, smallest: str, config: dict) -> None:
+def _print_reduction(table, smallest: str, config: dict, as_json: bool = False) -> None:
+    """The cut table on stdout: aligned text, or JSON for scripts (every column, units in the
+    column names as in reduction.csv)."""
+    import json
+
     from . import query, rank
 
+    if as_json:
+        red = rank.reduction_settings(config)
+        tolerances = {"ignition_delay_error [1]": red["max_ignition_delay_error"],
+                      "equilibrium_temperature_error [K]": red["max_equilibrium_temperature_error"],
+                      "entropy_produced_error [1]": red["max_entropy_produced_error"]}
+        print(json.dumps({"tolerances": tolerances, "cuts": json.loads(table.to_json(orient="records")),
+                          "smallest_by_criterion": rank.smallest_by_criterion(table),
+                          "smallest_within_tolerances": smallest or None}, indent=1))
+        return
     shown = table[["cut", "species [1]", "reactions [1]", "failed_cases [1]", "judged_at_end_cases [1]",
                    "ignition_delay_error_max [1]", "ignition_delay_error_median [1]",
                    "equilibrium_temperature_error_max [K]", "entropy_produced_error_max [1]",
@@ -133,8 +145,8 @@ def cmd_cut_report(args) -> int:
             raise InputError("--reduced-dir", f"missing validation file(s): {', '.join(missing)}")
     ds, table = rank.write_reduction(config, _existing(args.ranking, "--ranking"), args.reduced_dir,
                                      args.table, args.out, validations)
-    _print_reduction(table, ds.attrs["smallest_within_tolerances"], config)
-    print(f"wrote {args.table} and {args.out}")
+    _print_reduction(table, ds.attrs["smallest_within_tolerances"], config, args.json)
+    _say(f"wrote {args.table} and {args.out}")
     return 0
 
 
@@ -143,7 +155,7 @@ def cmd_reduce(args) -> int:
 
     config = _config(args.config)
     summary = rank.reduce_in_process(config, args.results, report=_say)
-    _print_reduction(summary["table"], summary["smallest"], config)
+    _print_reduction(summary["table"], summary["smallest"], config, args.json)
     return 0
 
 
@@ -274,11 +286,13 @@ def add_commands(sub) -> None:
     p.add_argument("--table", default="results/reduction.csv")
     p.add_argument("--out", default="results/reduction.nc")
     p.add_argument("--no-validation", action="store_true", help="report sizes only")
+    p.add_argument("--json", action="store_true", help="the cut table as JSON for scripts instead of text")
     p.set_defaults(func=cmd_cut_report)
 
     p = sub.add_parser("reduce", help="progress grid, ranking, cuts and their validation in this process")
     p.add_argument("config")
     p.add_argument("--results", default="results", help="folder of a finished run (sigmagrid run)")
+    p.add_argument("--json", action="store_true", help="the cut table as JSON for scripts instead of text")
     p.set_defaults(func=cmd_reduce)
 
     q = sub.add_parser("query", help="questions to a finished grid (tables, CSV or JSON)")
