@@ -59,6 +59,7 @@ def flow(tmp_path_factory):
     assert done.returncode == 0, done.stderr[-3000:]
     report = snakemake(workdir, "--report", "results/report.html")
     assert report.returncode == 0, report.stderr[-3000:]
+    (workdir / "report.log").write_text(report.stderr)
     return workdir
 
 
@@ -103,6 +104,93 @@ def test_every_expected_figure_is_a_valid_image_of_its_size(flow):
         assert svg.lstrip().startswith("<?xml") and "<svg" in svg
     # the rank rules are part of the default workflow, so their charts must be there
     assert {"ranking", "cuts"} <= set(expected_grid_figures(results))
+
+
+def test_report_builds_without_caption_warnings(flow):
+    """Every caption is valid reStructuredText once rendered: docutils reports no warning."""
+    log = (flow / "report.log").read_text()
+    assert "(WARNING/" not in log and "(ERROR/" not in log, log[-3000:]
+
+
+def _browser():
+    """Headless Chromium through chromedriver (Debian's chromium and chromium-driver, which
+    .ci/run installs); None where they are not installed, unless SIGMAGRID_REQUIRE_BROWSER is set."""
+    import os
+    import shutil
+
+    chromium, driver = shutil.which("chromium"), shutil.which("chromedriver")
+    try:
+        from selenium import webdriver
+        from selenium.webdriver.chrome.options import Options
+        from selenium.webdriver.chrome.service import Service
+    except ImportError:
+        chromium = None
+    if not (chromium and driver):
+        if os.environ.get("SIGMAGRID_REQUIRE_BROWSER"):
+            pytest.fail("SIGMAGRID_REQUIRE_BROWSER is set but chromium, chromedriver or selenium is missing")
+        pytest.skip("no chromium, chromedriver or selenium here (.ci/run installs them)")
+    options = Options()
+    options.binary_location = chromium
+    for arg in ("--headless=new", "--no-sandbox", "--disable-gpu", "--window-size=1400,1000"):
+        options.add_argument(arg)
+    return webdriver.Chrome(service=Service(driver), options=options)
+
+
+def test_report_shows_every_figure_in_a_browser(flow):
+    """The report opened in a real browser: every category and case group lists its figures,
+    and clicking each one's view button displays that PNG, decoded at its full width."""
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import WebDriverWait
+
+    pngs = {p.name: Image.open(p).size[0] for p in (flow / "results" / "figures" / "grid").glob("*.png")}
+    per_case = sorted((flow / "results" / "figures" / "cases").rglob("*.png"))
+    browser = _browser()
+    shown: list[str] = []
+    try:
+        browser.get((flow / "results" / "report.html").as_uri())
+        wait = WebDriverWait(browser, 20)
+
+        def open_menu(*path):
+            browser.get((flow / "results" / "report.html").as_uri())
+            for text in path:
+                wait.until(lambda b: b.find_elements(By.LINK_TEXT, text))[0].click()
+
+        def view_all(*path):
+            open_menu(*path)
+            rows = wait.until(lambda b: b.find_elements(By.XPATH, "//tr[.//a[@iconname='eye']]"))
+            for i in range(len(rows)):
+                row = browser.find_elements(By.XPATH, "//tr[.//a[@iconname='eye']]")[i]
+                row.find_element(By.XPATH, ".//a[@iconname='eye']").click()
+                images = wait.until(lambda b: [im for im in b.find_elements(By.TAG_NAME, "img")
+                                               if (im.get_attribute("src") or "").startswith("data:image/png")
+                                               and im.is_displayed()
+                                               and b.execute_script("return arguments[0].naturalWidth", im) > 0]
+                                    or None if "table" not in row.text else True)
+                if images is True:
+                    continue  # the reduction table: not an image
+                name = re.search(r"filename=([^;,]+\.png)", images[0].get_attribute("src")).group(1)
+                width = browser.execute_script("return arguments[0].naturalWidth", images[0])
+                shown.append(name)
+                if name in pngs:
+                    assert width == pngs[name], (name, width)
+                open_menu(*path)
+
+        view_all("Grid figures")
+        open_menu("Per-case figures")
+        wait.until(lambda b: b.find_elements(By.XPATH, "//tr[.//a[@iconname='eye']]")
+                   or len(b.find_elements(By.TAG_NAME, "a")) > 8)
+        if browser.find_elements(By.XPATH, "//tr[.//a[@iconname='eye']]"):
+            view_all("Per-case figures")  # a single case: its figures are listed at once
+        else:
+            menu = {"", "Results", "Per-case figures", "Grid figures", "Workflow", "Statistics", "About"}
+            groups = [a.text for a in browser.find_elements(By.TAG_NAME, "a") if a.text not in menu]
+            assert len(groups) == len({p.parent.name for p in per_case}), groups
+            for group in groups:
+                view_all("Per-case figures", group)
+    finally:
+        browser.quit()
+    assert sorted(n for n in shown if n in pngs) == sorted(pngs)
+    assert len(shown) == len(pngs) + len(per_case)
 
 
 def test_report_is_self_contained_with_every_figure_and_caption(flow):
