@@ -110,7 +110,9 @@ def estimate(config: dict, n_sample: int = 4, cores: int = 2, report=lambda s: N
             if "sea_comparison_wall_time" in ds:
                 sea_seconds.append(float(ds["sea_comparison_wall_time"]))
             sizes.append(target.stat().st_size)
-            report(f"[{k}/{len(sample)}] {case.label}: {seconds[-1]:.2f} s, {sizes[-1] / 1e6:.2f} MB")
+            elapsed = sum(seconds)
+            report(f"[{k}/{len(sample)}] {case.label}: {seconds[-1]:.2f} s, {sizes[-1] / 1e6:.2f} MB; "
+                   f"{runner.clock(elapsed)} elapsed, about {runner.clock(elapsed / k * (len(sample) - k))} left")
     return Estimate(n_cases=len(grid.cases), n_species=gas.n_species, n_reactions=gas.n_reactions,
                     sample_labels=tuple(c.label for c in sample), seconds_per_case=tuple(seconds),
                     bytes_per_case=statistics.mean(sizes), cores=cores,

@@ -191,8 +191,8 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
         elapsed = time.perf_counter() - run_started
         why = f" ({ds.attrs['reason']})" if ds.attrs["reason"] else ""
         report(f"[{n}/{len(cases)}] {case.label}: {ds.attrs['status']} in {time.perf_counter() - started:.2f} s, "
-               f"balance residual {float(ds['balance_residual']):.1e}{why}; {_clock(elapsed)} elapsed, "
-               f"about {_clock(elapsed / done * (to_run - done))} left")
+               f"balance residual {float(ds['balance_residual']):.1e}{why}; {clock(elapsed)} elapsed, "
+               f"about {clock(elapsed / done * (to_run - done))} left")
         if detail is not None and "sea_status" in ds:
             detail("    SEA paths: " + ", ".join(
                 f"{m} {st} {a:.3g} rad {w:.2f} s" for m, st, a, w in zip(
@@ -201,7 +201,7 @@ def run_cases(config: dict, cases: list[grid_mod.Case], out_dir: str | Path,
     return written
 
 
-def _clock(seconds: float) -> str:
+def clock(seconds: float) -> str:
     """A duration for people: 42 s, 3 min 20 s, 2 h 05 min."""
     seconds = int(round(seconds))
     if seconds < 60:
