@@ -402,47 +402,30 @@ def entropy_rate(V, x, q):
 
 
 @numba.njit(cache=True)
-def deficit(n, h_rt, mu, reactor, lagrange_eq, mu_eq):
-    """Phi_eq - Phi (J/K) as the Lagrangian L = Phi + R sum_k mu_eq,k N_k, mu_eq,k = sum_e
-    lambda_e a_ek/RT from the equilibrium's element potentials: lagrange_eq - L(n), with
-    lagrange_eq = L at equilibrium. Equal to Phi_eq - Phi wherever the element totals hold, and
-    stationary at equilibrium in every direction, so a trial state of the integrator a little off
-    the element totals no longer shifts the deficit at first order: near the end of a path that
-    shift is larger than the deficit itself."""
-    shift = 0.0
-    for k in range(n.size):
-        shift += mu_eq[k] * n[k]
-    return lagrange_eq - potential(n, h_rt, mu, reactor) - R * shift
-
-
-@numba.njit(cache=True)
 def clock_rhs(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
-              nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref, lagrange_eq, mu_eq,
-              out):
+              nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref, phi_eq, out):
     """dz/ds = tau dz/dt into ``out``; returns (T K, tau s), T = -1 where the state has no value
-    (no temperature meets the constraint, or no entropy left to produce or none produced).
-    lagrange_eq (J/K) and mu_eq (1, per species) define the entropy deficit (:func:`deficit`)."""
+    (no temperature meets the constraint, or no entropy left to produce or none produced)."""
     T, V, n, h_rt, cp_r, x, q, mob, g, sides, onset, mu = evaluate(
         z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
         nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref)
     if T < 0:
         return -1.0, 0.0
-    short = deficit(n, h_rt, mu, reactor, lagrange_eq, mu_eq)
+    deficit = phi_eq - potential(n, h_rt, mu, reactor)
     rate = entropy_rate(V, x, q)
-    if not (short > 0.0 and rate > 0.0):
+    if not (deficit > 0.0 and rate > 0.0):
         return -1.0, 0.0
-    tau = short / rate
+    tau = deficit / rate
     _log_rates(n, active, V, q, nu_ptr, nu_species, nu_coef, tau, out)
     return T, tau
 
 
 @numba.njit(cache=True)
-def clock_transform(f, J, n, w, w_eq, h_rt, dT, T, n_total, reactor, deficit, rate, JF):
+def clock_transform(f, J, n, w, h_rt, dT, T, n_total, reactor, deficit, rate, JF):
     """Jacobian of dz/ds = tau f from the time Jacobian J = df/dz, into JF; returns tau (s).
 
-    f : (na,) dz/dt (1/s); n, w, w_eq, h_rt : (na,) amounts (mol), n mu/RT and n mu_eq/RT (mol)
-    and h/RT of the active species; dT : (na,) dT/dz (K); deficit (J/K, :func:`deficit`), whose
-    gradient is R (w - w_eq); rate = dPhi/dt (W/K).
+    f : (na,) dz/dt (1/s); n, w, h_rt : (na,) amounts (mol), n mu/RT (mol) and h/RT of the
+    active species; dT : (na,) dT/dz (K); deficit = Phi_eq - Phi (J/K); rate = dPhi/dt (W/K).
     With grad Phi = -R w (dPhi/dN_k = -mu_k/T on every reactor's constraint, N_k d/dN_k = d/dz_k),
     rate = grad Phi . f, so grad rate = -R (Hess f + J^T w), where (Hess f)_k = sum_i f_i d w_i/dz_k
     on the constraint: w_k f_k + n_k f_k, plus (1 - h_i) dT_k/T terms at fixed volume and
@@ -467,7 +450,7 @@ def clock_transform(f, J, n, w, w_eq, h_rt, dT, T, n_total, reactor, deficit, ra
         for i in range(na):
             wj += w[i] * J[i, k]
         grad_rate = -R * (hess + wj)
-        grad[k] = (R * (w[k] - w_eq[k]) - tau * grad_rate) / rate
+        grad[k] = (R * w[k] - tau * grad_rate) / rate
     for i in range(na):
         for k in range(na):
             JF[i, k] = tau * J[i, k] + f[i] * grad[k]
@@ -477,7 +460,7 @@ def clock_transform(f, J, n, w, w_eq, h_rt, dT, T, n_total, reactor, deficit, ra
 @numba.njit(cache=True)
 def clock_jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, pressure, T_guess, energy0,
                    nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref,
-                   active_pos, nu_sum, lagrange_eq, mu_eq, J):
+                   active_pos, nu_sum, phi_eq, J):
     """d(dz/ds)/dz into J (see :func:`clock_transform`); returns T (K), or -1."""
     na = active.size
     Jt = np.empty((na, na))
@@ -486,24 +469,22 @@ def clock_jacobian(z, n_full, active, n_ref, coef, p_ref, reactor, volume, press
         nu_ptr, nu_species, nu_coef, side_rows, side_cols, nr, eps, kind, m, b, t_ref, active_pos, nu_sum, Jt)
     if T < 0:
         return -1.0
-    short = deficit(n, h_rt, mu, reactor, lagrange_eq, mu_eq)
+    deficit = phi_eq - potential(n, h_rt, mu, reactor)
     rate = entropy_rate(V, x, q)
-    if not (short > 0.0 and rate > 0.0):
+    if not (deficit > 0.0 and rate > 0.0):
         return -1.0
     total = 0.0
     for k in range(n.size):
         total += n[k]
     na_n = np.empty(na)
     w = np.empty(na)
-    w_eq = np.empty(na)
     h_a = np.empty(na)
     for i in range(na):
         k = active[i]
         na_n[i] = n[k]
         w[i] = n[k] * mu[k]
-        w_eq[i] = n[k] * mu_eq[k]
         h_a[i] = h_rt[k]
-    clock_transform(f, Jt, na_n, w, w_eq, h_a, dT, T, total, reactor, short, rate, J)
+    clock_transform(f, Jt, na_n, w, h_a, dT, T, total, reactor, deficit, rate, J)
     return T
 
 
@@ -531,19 +512,19 @@ STEP_FAILED = 5  # a step's state could not be projected onto the element totals
 
 # indices into the integer and float state arrays of ``bdf_path``
 I_ORDER, I_EQUAL, I_HARD, I_LU, I_NJEV, I_SEEN, I_RETRIES, I_RHS, I_JAC, I_STEPS, I_HAVE_LAST = range(11)
-F_T, F_TOLD, F_H, F_TGUESS, F_PHI, F_UERR, F_RAW, F_DROP, F_LAGRANGE_EQ, F_TAU = range(10)
+F_T, F_TOLD, F_H, F_TGUESS, F_PHI, F_UERR, F_RAW, F_DROP, F_PHI_EQ, F_TAU = range(10)
 N_FLOAT_STATE = 10
 
 
 @numba.njit(cache=True)
 def _rhs(z, H, L, fs, out):
-    """clock_rhs() with the kernel arguments packed: H the head, L the tail of ``CompiledRates.path_args``;
+    """clock_rhs() with the kernel arguments packed: H the head, L the tail of ``CompiledRates``;
     the temperature guess in fs[F_TGUESS] and tau in fs[F_TAU] are updated. False where the state
     has no value."""
     if not z.max() < 50.0:  # as dynamics._System.amounts: a trial state far off
         return False
     T, tau = clock_rhs(z, H[0], H[1], H[2], H[3], H[4], H[5], H[6], H[7], fs[F_TGUESS], L[0], L[1], L[2], L[3],
-                       L[4], L[5], L[6], L[7], L[8], L[9], L[10], L[11], fs[F_LAGRANGE_EQ], L[12], out)
+                       L[4], L[5], L[6], L[7], L[8], L[9], L[10], L[11], fs[F_PHI_EQ], out)
     if not T > 0:
         return False
     fs[F_TGUESS] = T
@@ -559,8 +540,7 @@ def _jac(z, H, L, active_pos, nu_sum, fs, J):
     if not z.max() < 50.0:
         return False
     T = clock_jacobian(z, H[0], H[1], H[2], H[3], H[4], H[5], H[6], H[7], fs[F_TGUESS], L[0], L[1], L[2], L[3],
-                       L[4], L[5], L[6], L[7], L[8], L[9], L[10], L[11], active_pos, nu_sum, fs[F_LAGRANGE_EQ], L[12],
-                       J)
+                       L[4], L[5], L[6], L[7], L[8], L[9], L[10], L[11], active_pos, nu_sum, fs[F_PHI_EQ], J)
     if not T > 0:
         return False
     fs[F_TGUESS] = T
@@ -817,9 +797,8 @@ def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale
     """Steps of one SEA path until a stop (the codes STEP_*), at most rec_t.size accepted steps per
     call. The clock is s = -ln(1 - lambda) from the start (see :func:`clock_rhs`). The state (fs,
     istate, D, yv, J, LU, piv) carries over between calls; each accepted step is recorded (clock,
-    its start, BDF's step and order and differences, the progress, tau s at the step's end and
-    middle) for the dense output
-    and the time. ``dynamics._sea_path`` documents the choices; this mirrors it line by line."""
+    its start, BDF's step and order and differences, the progress, tau s at the step's end) for
+    the dense output and the time. ``dynamics._sea_path`` documents the choices; this mirrors it line by line."""
     n = yv.size
     active = H[1]
     n_full = H[0]

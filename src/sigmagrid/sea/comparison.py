@@ -295,8 +295,8 @@ def _compare(gas, info, rel, sample_index, settings):
             system.state(z0)
             phi_start = system.potential()
             if phi_eq_sea is None:
-                phi_eq_sea, mu_eq_sea = _equilibrium_potential(gas, rel.reactor, rel.mass, elements)
-            path = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, mu_eq_sea, grid, elements, settings)
+                phi_eq_sea = _equilibrium_potential(gas, rel.reactor, rel.mass)
+            path = _sea_path(system, z0, lam_start, phi_start, phi_eq_sea, grid, elements, settings)
             path.trace_level = settings.trace_level if metric != "log-mean" else float("nan")
             reached = np.flatnonzero(np.isfinite(path.time))
             if path.status in ("incomplete", "budget") and mob.m is not None and reached.size:
@@ -439,23 +439,14 @@ def _slow_mode_note(system, n_eq, mobility, kin_rates, n_cmp, reactions, info, t
     return "; ".join(parts)
 
 
-def _equilibrium_potential(gas, reactor, mass, elements):
-    """Cantera's equilibrium of the gas's current state with the reactor's pair held fixed:
-    (Phi, J/K; mu/RT of its element potentials per species, 1).
-
-    The element potentials lambda_e/RT are the least-squares solution of sum_e a_ek lambda_e =
-    mu_k/RT over the species, weighted by mole fraction (exact at equilibrium up to Cantera's
-    tolerance; the weights keep species at 1e-300 from pulling on it)."""
+def _equilibrium_potential(gas, reactor, mass):
+    """Phi at Cantera's equilibrium of the gas's current state with the reactor's pair held fixed, J/K."""
     pair = {"isolated": "UV", "constant-pressure": "HP", "isothermal": "TP"}[reactor]
     saved = gas.state
     try:
         gas.equilibrate(pair)
         s = mass * gas.entropy_mass
-        phi = s - mass * gas.enthalpy_mass / gas.T if reactor == "isothermal" else s
-        mu_rt = gas.chemical_potentials / (ct.gas_constant * gas.T)
-        weight = np.sqrt(gas.X)
-        potentials = np.linalg.lstsq(elements.T * weight[:, None], mu_rt * weight, rcond=None)[0]
-        return phi, elements.T @ potentials
+        return s - mass * gas.enthalpy_mass / gas.T if reactor == "isothermal" else s
     finally:
         gas.state = saved
 

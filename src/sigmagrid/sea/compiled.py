@@ -112,19 +112,17 @@ def _compile():
     fs, istate = np.zeros(_kernels.N_FLOAT_STATE), np.zeros(11, np.int64)
     D, y, J, LU, piv = np.zeros((8, 1)), np.zeros(1), np.zeros((1, 1)), np.zeros((1, 1)), np.zeros(1, np.int64)
     fs[_kernels.F_TGUESS] = 300.0
-    path_tail = tail + (np.zeros(1),)  # the path loop's tail carries the equilibrium's mu/RT
-    _kernels.bdf_start(np.zeros(1), head, path_tail, one_i, np.zeros(1), 1e-5, 1e-7, fs, istate, D, J, y)
+    _kernels.bdf_start(np.zeros(1), head, tail, one_i, np.zeros(1), 1e-5, 1e-7, fs, istate, D, J, y)
     coefficients = np.ones(6)
     fs[_kernels.F_H] = 1e-3  # the dummy has no entropy production, so bdf_start left no step
-    _kernels.bdf_path(head, path_tail, one_i, np.zeros(1), np.ones((1, 1)), one_f, np.ones((1, 1)), one_f, one_f,
+    _kernels.bdf_path(head, tail, one_i, np.zeros(1), np.ones((1, 1)), one_f, np.ones((1, 1)), one_f, one_f,
                       coefficients, coefficients, coefficients, 1e-5, 1e-7, 0.03, 0.0, 0.0, 1.0, 0.0, 0.0, 1.0, 1,
                       0.0, 1e-5, 8, 10, 10, 1.0, True, True, 30.0, fs, istate, D, y, J, LU, piv, np.empty(1), np.empty(1),
                       np.empty(1), np.empty(1, np.int64), np.empty((1, 6, 1)), np.empty(1), np.empty(1))
     # the progress clock as the Python route calls it
-    _kernels.clock_rhs(np.zeros(1), *head, 300.0, *tail, 1.0, np.zeros(1), np.empty(1))
-    _kernels.clock_jacobian(np.zeros(1), *head, 300.0, *tail, one_i, np.zeros(1), 1.0, np.zeros(1),
-                            np.empty((1, 1)))
-    _kernels.clock_transform(one_f, np.ones((1, 1)), one_f, one_f, one_f, one_f, one_f, 300.0, 1.0, 0, 1.0, 1.0,
+    _kernels.clock_rhs(np.zeros(1), *head, 300.0, *tail, 1.0, np.empty(1))
+    _kernels.clock_jacobian(np.zeros(1), *head, 300.0, *tail, one_i, np.zeros(1), 1.0, np.empty((1, 1)))
+    _kernels.clock_transform(one_f, np.ones((1, 1)), one_f, one_f, one_f, one_f, 300.0, 1.0, 0, 1.0, 1.0,
                              np.empty((1, 1)))
     return _kernels
 
@@ -156,9 +154,6 @@ class CompiledRates:
                       a["pressure"])
         self._tail = (a["energy0"], a["nu_ptr"], a["nu_species"], a["nu_coef"], a["side_rows"], a["side_cols"],
                       a["nr"], a["eps"], a["kind"], a["m"], a["b"], a["t_ref"])
-        #: mu/RT (1, per species) of the equilibrium's element potentials, for the entropy deficit
-        #: of the progress clock (``_kernels.deficit``); set by the path (``_System.aim``)
-        self.mu_eq = np.zeros(a["n_full"].size)
 
     def settle(self, n, E, target, T_guess):
         """Amounts n (mol, full) projected onto the element constraints E n[active] = target, with
@@ -185,22 +180,20 @@ class CompiledRates:
         T = self.kernels.rhs(z, *self._head, float(T_guess), *self._tail, out)
         return out, T
 
-    def clock(self, z, T_guess, lagrange_eq):
+    def clock(self, z, T_guess, phi_eq):
         """(dz/ds, T, tau s) on the progress clock (``_kernels.clock_rhs``); T < 0 where the state
-        has no value. lagrange_eq, J/K: see ``_kernels.deficit``."""
+        has no value."""
         out = np.empty(z.size)
-        T, tau = self.kernels.clock_rhs(z, *self._head, float(T_guess), *self._tail, float(lagrange_eq),
-                                        self.mu_eq, out)
+        T, tau = self.kernels.clock_rhs(z, *self._head, float(T_guess), *self._tail, float(phi_eq), out)
         return out, T, tau
 
-    def clock_jacobian(self, z, T_guess, lagrange_eq):
+    def clock_jacobian(self, z, T_guess, phi_eq):
         """(d(dz/ds)/dz, T); T < 0 where the state has no value."""
         J = np.empty((z.size, z.size))
         T = self.kernels.clock_jacobian(z, *self._head, float(T_guess), *self._tail, self._active_pos,
-                                        self._nu_sum, float(lagrange_eq), self.mu_eq, J)
+                                        self._nu_sum, float(phi_eq), J)
         return J, T
 
     def path_args(self):
-        """(head, tail, active_pos, nu_sum): the arguments of the compiled path loop (``_kernels.bdf_path``);
-        its tail ends with ``mu_eq``."""
-        return self._head, self._tail + (self.mu_eq,), self._active_pos, self._nu_sum
+        """(head, tail, active_pos, nu_sum): the arguments of the compiled path loop (``_kernels.bdf_path``)."""
+        return self._head, self._tail, self._active_pos, self._nu_sum

@@ -179,9 +179,7 @@ class _System:
         self.eps = np.zeros(len(active)) if trace_amounts is None else np.asarray(trace_amounts, float)
         self._trace_on = bool(self.eps.max(initial=0.0) > 0)
         self._cache = None  # species energies and heat capacities at the last temperature
-        self.phi_eq = float("nan")  # J/K, the potential the progress clock runs towards (set by aim())
-        self.mu_eq = np.zeros(gas.n_species)  # 1, mu/RT of the equilibrium's element potentials (aim())
-        self.lagrange_eq = float("nan")  # J/K, the deficit's Lagrangian at equilibrium (aim())
+        self.phi_eq = float("nan")  # J/K, the potential the progress clock runs towards (set by _sea_path)
         self.tau = float("nan")  # s, (Phi_eq - Phi)/(dPhi/dt) at the last clock_rhs state
         self._last_clock_jac = None  # the last Jacobian the Cantera route could form
         self.n_rhs = 0
@@ -196,22 +194,6 @@ class _System:
                     gas, reactor, self.n_full, active, self.n_ref, reactions, self.nu_rx, self._side_rows,
                     self._side_cols, volume, pressure, self.energy0, self.eps, mobility.kind, mobility.m,
                     mobility.b, mobility.t_ref, table)
-
-    def aim(self, phi_eq: float, mu_eq: np.ndarray, n_balanced: np.ndarray) -> None:
-        """The equilibrium the progress clock runs towards: its potential Phi_eq (J/K) and mu/RT
-        of its element potentials (1, per species), with amounts n_balanced (mol) that hold the
-        path's element totals. The clock's deficit is then taken as the Lagrangian
-        ``_kernels.deficit``: Phi_eq - Phi on the element totals, and insensitive at first order to
-        the integrator's trial states off them."""
-        self.phi_eq = float(phi_eq)
-        self.mu_eq[:] = mu_eq
-        self.lagrange_eq = self.phi_eq + _R * float(self.mu_eq @ n_balanced)
-        if self._compiled is not None:
-            self._compiled.mu_eq[:] = self.mu_eq
-
-    def _deficit(self, n: np.ndarray) -> float:
-        """Phi_eq - Phi at amounts n (mol, the gas set to them), J/K, as ``_kernels.deficit``."""
-        return self.lagrange_eq - self.potential() - _R * float(self.mu_eq @ n)
 
     # state --------------------------------------------------------------------------------
     def amounts(self, z: np.ndarray) -> np.ndarray:
@@ -367,7 +349,7 @@ class _System:
         if self._compiled is not None:
             if not z.max() < 50.0:
                 return np.full(z.size, np.nan)
-            out, T, tau = self._compiled.clock(z, self.temperature, self.lagrange_eq)
+            out, T, tau = self._compiled.clock(z, self.temperature, self.phi_eq)
             if not T > 0:
                 return np.full(z.size, np.nan)
             self.temperature, self.tau = T, tau
@@ -378,7 +360,7 @@ class _System:
             return np.full(z.size, np.nan)
         x, rf = self._kinetics(T)
         q, _, _ = self._rates(T, x, rf)
-        deficit, rate = self._deficit(n), _R * V * float(x @ q)
+        deficit, rate = self.phi_eq - self.potential(), _R * V * float(x @ q)
         if not (deficit > 0 and rate > 0):
             return np.full(z.size, np.nan)
         self.tau = deficit / rate
@@ -390,7 +372,7 @@ class _System:
             self.n_jac += 1
             if not z.max() < 50.0:
                 raise _OffConstraint("amounts out of range")
-            J, T = self._compiled.clock_jacobian(z, self.temperature, self.lagrange_eq)
+            J, T = self._compiled.clock_jacobian(z, self.temperature, self.phi_eq)
             if not T > 0:  # a trial state past the end: as below
                 if self._last_clock_jac is None:
                     raise _OffConstraint("no value of the progress clock here")
@@ -405,7 +387,7 @@ class _System:
         n, T, V = self.state(z) if J is not None else (None, None, None)
         x, rf = self._kinetics(T) if J is not None else (None, None)
         q = self._rates(T, x, rf)[0] if J is not None else None
-        deficit, rate = (self._deficit(n), _R * V * float(x @ q)) if J is not None else (0.0, 0.0)
+        deficit, rate = (self.phi_eq - self.potential(), _R * V * float(x @ q)) if J is not None else (0.0, 0.0)
         if not (deficit > 0 and rate > 0):
             # a trial state of BDF's past the end (no entropy left to produce): its Newton
             # iteration only needs a Jacobian near this one, and scipy's BDF cannot take "none"
@@ -417,8 +399,7 @@ class _System:
         dT, _ = self._constraint_derivatives(n, T, V)
         w = na * g.chemical_potentials[self.active] * PER_KMOL / (_R * T)
         out = np.empty_like(J)
-        _clock_transform()(V * (self.nu_a @ q) / na, J, na, w, na * self.mu_eq[self.active],
-                           g.standard_enthalpies_RT[self.active], dT, T,
+        _clock_transform()(V * (self.nu_a @ q) / na, J, na, w, g.standard_enthalpies_RT[self.active], dT, T,
                            float(n.sum()), compiled.REACTOR_CODES[self.reactor], deficit, rate, out)
         self._last_clock_jac = out
         return out
@@ -776,7 +757,7 @@ class _Balance:
     E_target: np.ndarray
 
 
-def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, mu_eq, grid, elements, settings):
+def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, grid, elements, settings):
     """Integrate one SEA path and sample it at the progress grid (NaN where it is not reached).
 
     The SEA progress is lambda_start + (1 - lambda_start)(Phi - Phi_start)/(Phi_eq - Phi_start), with
@@ -835,7 +816,7 @@ def _sea_path(system: _System, z0, lam_start, phi_start, phi_eq, mu_eq, grid, el
     system.state(z0)
     u0 = system.held_energy()
     phi_start_path = system.potential()
-    system.aim(phi_eq, mu_eq, n0)
+    system.phi_eq = phi_eq
     rhs_before, jac_before = system.n_rhs, system.n_jac
     if not np.isfinite(system.clock_rhs(0.0, z0)).all():
         return _Path("failed", "no entropy production at the SEA start state under this metric",
@@ -1003,7 +984,7 @@ def _run_compiled(system, z0, lam_of, phi_start, settings, rtol, atol, s_limit, 
     fs = np.zeros(k.N_FLOAT_STATE)
     fs[k.F_TGUESS] = system.temperature
     fs[k.F_PHI] = phi_start
-    fs[k.F_LAGRANGE_EQ] = system.lagrange_eq
+    fs[k.F_PHI_EQ] = system.phi_eq
     istate = np.zeros(11, np.int64)
     D = np.zeros((max_order + 3, na))
     yv = np.empty(na)
