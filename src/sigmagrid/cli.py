@@ -305,8 +305,6 @@ def cmd_bench(args) -> int:
     return 0
 
 
-
-
 def _available_cores() -> int:
     try:
         return len(os.sched_getaffinity(0))

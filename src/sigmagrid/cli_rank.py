@@ -20,8 +20,6 @@ from .errors import TABLE_ROWS, InputError, positive_int
 from .messages import say as _say
 
 
-
-
 def _config(path: str) -> dict:
     from .cli import _load_config
 
@@ -113,11 +111,7 @@ def _print_reduction(table, smallest: str, config: dict, as_json: bool = False) 
     from . import query, rank
 
     if as_json:
-        red = rank.reduction_settings(config)
-        tolerances = {"ignition_delay_error [1]": red["max_ignition_delay_error"],
-                      "equilibrium_temperature_error [K]": red["max_equilibrium_temperature_error"],
-                      "entropy_produced_error [1]": red["max_entropy_produced_error"]}
-        print(json.dumps({"tolerances": tolerances, "cuts": json.loads(table.to_json(orient="records")),
+        print(json.dumps({"tolerances": rank.tolerances(config), "cuts": json.loads(table.to_json(orient="records")),
                           "smallest_by_criterion": rank.smallest_by_criterion(table),
                           "smallest_within_tolerances": smallest or None}, indent=1))
         return

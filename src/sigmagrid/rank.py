@@ -837,10 +837,18 @@ def write_reduction(config: dict, ranking_path, cut_dir, table_path, netcdf_path
     return ds, table
 
 
-def tolerance_text(config: dict) -> str:
+def tolerances(config: dict) -> dict:
+    """The cut validation's tolerances, keyed with their units as in reduction.csv's columns."""
     red = reduction_settings(config)
-    return (f"ignition delay {red['max_ignition_delay_error']:g} (relative), equilibrium temperature "
-            f"{red['max_equilibrium_temperature_error']:g} K, entropy produced {red['max_entropy_produced_error']:g} "
+    return {"ignition_delay_error [1]": red["max_ignition_delay_error"],
+            "equilibrium_temperature_error [K]": red["max_equilibrium_temperature_error"],
+            "entropy_produced_error [1]": red["max_entropy_produced_error"]}
+
+
+def tolerance_text(config: dict) -> str:
+    tol = tolerances(config)
+    return (f"ignition delay {tol['ignition_delay_error [1]']:g} (relative), equilibrium temperature "
+            f"{tol['equilibrium_temperature_error [K]']:g} K, entropy produced {tol['entropy_produced_error [1]']:g} "
             "(relative)")
 
 

@@ -798,7 +798,8 @@ def bdf_path(H, L, active_pos, nu_sum, E, target, elements, target_full, e_scale
     call. The clock is s = -ln(1 - lambda) from the start (see :func:`clock_rhs`). The state (fs,
     istate, D, yv, J, LU, piv) carries over between calls; each accepted step is recorded (clock,
     its start, BDF's step and order and differences, the progress, tau s at the step's end) for
-    the dense output and the time. ``dynamics._sea_path`` documents the choices; this mirrors it line by line."""
+    the dense output and the time. ``dynamics._sea_path`` documents the choices; this mirrors it
+    line by line."""
     n = yv.size
     active = H[1]
     n_full = H[0]
